@@ -1,0 +1,27 @@
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: install demo test lint clean
+
+$(STAMP): pyproject.toml constraints.txt
+	test -x $(BIN)/python || $(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade "pip>=24"
+	$(BIN)/python -m pip install -q -c constraints.txt torch==2.13.0
+	$(BIN)/python -m pip install -q -c constraints.txt -e ".[test]"
+	touch $(STAMP)
+
+install: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/ballast demo
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+lint: $(STAMP)
+	$(BIN)/ruff check src tests bench
+
+clean:
+	rm -rf runs .pytest_cache
