@@ -32,7 +32,9 @@ class MetricSpec:
 
     def __post_init__(self) -> None:
         if self.name not in METRICS:
-            raise ValueError(f"unknown metric name {self.name!r}; expected one of {', '.join(METRICS)}")
+            raise ValueError(
+                f"unknown metric name {self.name!r}; expected one of {', '.join(METRICS)}"
+            )
         _check_k(self.k)
 
     def __str__(self) -> str:
@@ -51,24 +53,35 @@ def parse_metric(text: str) -> MetricSpec:
 
 
 def _top(ids: Sequence[Hashable], k: int, i: int) -> list[Hashable]:
-    if isinstance(ids, (str, bytes)) or not isinstance(ids, Sequence):
-        raise ValueError(f"ranked[{i}] must be a sequence of document ids, got {type(ids).__name__}")
+    if isinstance(ids, (str, bytes)) or not isinstance(ids, (Sequence, np.ndarray)):
+        raise ValueError(
+            f"ranked[{i}] must be a sequence of document ids, got {type(ids).__name__}"
+        )
     top = list(ids[:k])
     if len(set(top)) != len(top):
-        raise ValueError(f"ranked[{i}] contains duplicate document ids; expected a deduplicated ranking")
+        raise ValueError(
+            f"ranked[{i}] contains duplicate document ids; expected a deduplicated ranking"
+        )
     return top
 
 
 def _per_query(
-    ranked: Ranked, qrels: Qrels, k: int, fn: Callable[[list[Hashable], Mapping[Hashable, int], int], float]
+    ranked: Ranked,
+    qrels: Qrels,
+    k: int,
+    fn: Callable[[list[Hashable], Mapping[Hashable, int], int], float],
 ) -> np.ndarray:
     k = _check_k(k)
     if len(ranked) != len(qrels):
-        raise ValueError(f"ranked has {len(ranked)} queries but qrels has {len(qrels)}; expected equal lengths")
+        raise ValueError(
+            f"ranked has {len(ranked)} queries but qrels has {len(qrels)}; expected equal lengths"
+        )
     out = np.empty(len(ranked), dtype=np.float64)
-    for i, (ids, rels) in enumerate(zip(ranked, qrels)):
+    for i, (ids, rels) in enumerate(zip(ranked, qrels, strict=True)):
         if not isinstance(rels, Mapping):
-            raise ValueError(f"qrels[{i}] must be a mapping doc_id -> grade, got {type(rels).__name__}")
+            raise ValueError(
+                f"qrels[{i}] must be a mapping doc_id -> grade, got {type(rels).__name__}"
+            )
         out[i] = fn(_top(ids, k, i), rels, k)
     return out
 
@@ -92,7 +105,7 @@ def recall_at_k(ranked: Ranked, qrels: Qrels, k: int) -> np.ndarray:
 
 
 def precision_at_k(ranked: Ranked, qrels: Qrels, k: int) -> np.ndarray:
-    """|relevant in top k| / k (divides by k even when fewer than k are ranked, as trec_eval P_k)."""
+    """|relevant in top k| / k, even when fewer than k are ranked (trec_eval P_k)."""
     return _per_query(ranked, qrels, k, lambda t, r, k: sum(_hits(t, r)) / k)
 
 
@@ -115,9 +128,9 @@ def _ndcg(top: list[Hashable], rels: Mapping[Hashable, int], k: int) -> float:
 
 
 def ndcg_at_k(ranked: Ranked, qrels: Qrels, k: int) -> np.ndarray:
-    """Linear-gain nDCG: sum rel_i / log2(i + 1); ideal from all judged relevant grades (trec_eval ndcg_cut).
+    """Linear-gain nDCG, sum rel_i / log2(i + 1) (trec_eval ndcg_cut).
 
-    0.0 for a query with no relevant documents.
+    The ideal ranking uses all judged relevant grades; 0.0 for a query with none.
     """
     return _per_query(ranked, qrels, k, _ndcg)
 
@@ -132,7 +145,7 @@ def _ap(top: list[Hashable], rels: Mapping[Hashable, int], k: int) -> float:
 
 
 def map_at_k(ranked: Ranked, qrels: Qrels, k: int) -> np.ndarray:
-    """Average precision truncated at k, divided by ALL relevant documents (trec_eval map_cut); 0.0 if none."""
+    """AP truncated at k, divided by ALL relevant documents (trec_eval map_cut); 0.0 if none."""
     return _per_query(ranked, qrels, k, _ap)
 
 
@@ -151,7 +164,9 @@ _FUNCS: dict[str, Callable[[Ranked, Qrels, int], np.ndarray]] = {
 }
 
 
-def compute(specs: Sequence[MetricSpec | str], ranked: Ranked, qrels: Qrels) -> dict[str, np.ndarray]:
+def compute(
+    specs: Sequence[MetricSpec | str], ranked: Ranked, qrels: Qrels
+) -> dict[str, np.ndarray]:
     """Per-query values for each spec, keyed by str(spec) (e.g. "ndcg@10")."""
     parsed = [s if isinstance(s, MetricSpec) else parse_metric(s) for s in specs]
     return {str(s): _FUNCS[s.name](ranked, qrels, s.k) for s in parsed}

@@ -1,0 +1,18 @@
+"""The command line: one command a stage, plus run, demo and init. The only place that prints."""
+
+from __future__ import annotations
+
+import sys
+
+from .app import app
+
+
+def main() -> None:
+    try:
+        app(standalone_mode=True)
+    except KeyboardInterrupt:  # pragma: no cover - interactive
+        sys.stderr.write("interrupted; finished stages are kept, the current one will rerun\n")
+        sys.exit(130)
+
+
+__all__ = ["app", "main"]

@@ -1,0 +1,190 @@
+"""Typer commands. Heavy libraries are imported inside commands, so --help answers at once."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+
+from ..errors import BallastError
+from .output import StderrProgress, emit_json, gate_text, metrics_table, stage_line
+
+app = typer.Typer(
+    add_completion=False, no_args_is_help=True, rich_markup_mode=None,
+    help="Adapt a sentence-embedding model to your documents on a CPU, and prove the gain "
+         "on every evaluation split before it ships.\n\n"
+         "Exit codes: 0 ok, 1 the release gate failed, 2 bad input, usage or config.",
+)
+
+Target = Annotated[Path, typer.Argument(help="A config file (.toml) or a run folder.")]
+Sets = Annotated[list[str] | None, typer.Option("--set", "-s", metavar="KEY=VALUE",
+                                                 help="Override a config key, e.g. train.epochs=2.")]
+Json = Annotated[bool, typer.Option("--json", help="Print one JSON document on stdout.")]
+Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="No progress on stderr.")]
+Force = Annotated[bool, typer.Option("--force", help="Export even if the gate failed "
+                                                    "(recorded in the manifest).")]
+
+SHOWN = ["ndcg@10", "mrr@10", "recall@10"]
+
+
+def _fail(exc: BallastError) -> None:
+    sys.stderr.write(f"error: {exc}\n")
+    raise typer.Exit(exc.exit_code)
+
+
+def _load(target: Path, sets: list[str] | None) -> Any:
+    from ..config import load_config, load_run_config
+
+    if target.is_dir():
+        return load_run_config(target, sets or [])
+    if not target.exists():
+        from ..errors import ConfigError
+
+        raise ConfigError("no such config file or run folder", source=str(target))
+    return load_config(target, sets or [])
+
+
+def _stage(stage: str, target: Path, sets: list[str] | None, as_json: bool, quiet: bool,
+           force: bool = False) -> None:
+    from ..pipeline import run_stage
+    from ..stages import Run
+
+    try:
+        cfg = _load(target, sets)
+        run = Run(cfg, StderrProgress(quiet or as_json), force_export=force)
+        result = run_stage(run, stage)
+    except BallastError as exc:
+        _fail(exc)
+    if as_json:
+        emit_json(result)
+    else:
+        typer.echo(stage_line(result))
+        if stage == "evaluate":
+            typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
+        if stage == "gate":
+            typer.echo(gate_text(_read(run.path("gate.json"))))
+    if stage == "gate" and not result["summary"]["passed"]:
+        raise typer.Exit(1)
+
+
+def _read(p: Path) -> Any:
+    return json.loads(p.read_text("utf-8"))
+
+
+def _make_stage_command(stage: str, doc: str) -> None:
+    if stage == "export":
+        def command(target: Target, set_: Sets = None, as_json: Json = False,
+                    quiet: Quiet = False, force: Force = False) -> None:
+            _stage(stage, target, set_, as_json, quiet, force)
+    else:
+        def command(target: Target, set_: Sets = None, as_json: Json = False,
+                    quiet: Quiet = False) -> None:
+            _stage(stage, target, set_, as_json, quiet)
+    command.__doc__ = doc
+    app.command(stage)(command)
+
+
+for _name, _doc in [
+    ("ingest", "Read the documents folder and cut it into passages (passages.jsonl)."),
+    ("synth", "Write training queries for the passages; import human questions (queries.jsonl)."),
+    ("split", "Split by document into train/dev/test, write TREC qrels and a leakage audit."),
+    ("mine", "Mine hard negatives for the training pairs with the base model (negatives.jsonl)."),
+    ("train", "Fine-tune the base model on the training pairs (model/)."),
+    ("evaluate", "Score base and tuned models on every evaluation split (metrics.json)."),
+    ("gate", "Decide whether the tuned model ships (gate.json); exit 1 if it does not."),
+    ("export", "Write the versioned bundle with its manifest for the index builder."),
+]:
+    _make_stage_command(_name, _doc)
+
+
+def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
+    from ..pipeline import run_all
+    from ..stages import Run
+
+    progress = StderrProgress(quiet or as_json)
+    run = Run(cfg, progress, force_export=force)
+    try:
+        results = []
+        for r in _iter_run(run, run_all):
+            results.append(r)
+    except BallastError as exc:
+        _fail(exc)
+    verdict = _read(run.path("gate.json"))
+    exported = next((r for r in results if r["stage"] == "export" and not r["skipped"]), None)
+    if as_json:
+        emit_json({"stages": results, "metrics": _read(run.path("metrics.json")),
+                   "gate": verdict, "bundle": exported["summary"]["bundle"] if exported else None})
+    else:
+        for r in results:
+            typer.echo(stage_line(r))
+        typer.echo("")
+        typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
+        typer.echo("")
+        typer.echo(gate_text(verdict))
+        if exported:
+            typer.echo(f"bundle: {exported['summary']['bundle']}")
+        else:
+            typer.echo("bundle: not exported (the gate failed; `ballast export --force` "
+                       "overrides, and the manifest records it)")
+    if not verdict["passed"]:
+        raise typer.Exit(1)
+
+
+def _iter_run(run: Any, run_all: Any) -> list[dict]:
+    return run_all(run)
+
+
+@app.command("run")
+def run_command(config: Annotated[Path, typer.Argument(help="A config file (.toml).")],
+                set_: Sets = None, as_json: Json = False, quiet: Quiet = False,
+                force: Force = False) -> None:
+    """Run every stage in order, skipping those whose inputs and settings are unchanged."""
+    try:
+        cfg = _load(config, set_)
+    except BallastError as exc:
+        _fail(exc)
+    _run(cfg, as_json, quiet, force)
+
+
+def demo_config() -> Path:
+    here = Path(__file__).resolve().parents[3] / "configs" / "demo.toml"
+    return here if here.is_file() else Path("configs/demo.toml")
+
+
+@app.command("demo")
+def demo_command(set_: Sets = None, as_json: Json = False, quiet: Quiet = False) -> None:
+    """The whole pipeline on the bundled demo domain (configs/demo.toml into runs/demo/)."""
+    from ..config import load_config
+
+    try:
+        cfg = load_config(demo_config(), set_ or [])
+    except BallastError as exc:
+        _fail(exc)
+    if not quiet and not as_json:
+        sys.stderr.write("ballast demo: the invented Kestrel Hollow Cider Works handbook "
+                         "(fiction, not operational or food-safety guidance)\n")
+    _run(cfg, as_json, quiet, False)
+
+
+@app.command("init")
+def init_command(folder: Annotated[Path, typer.Argument(help="Folder for a new project.")]) -> None:
+    """Write a commented config template and an empty documents folder."""
+    from ..files import write_text_atomic
+    from .template import TEMPLATE
+
+    cfg = folder / "ballast.toml"
+    if cfg.exists():
+        sys.stderr.write(f"error: {cfg} already exists; not overwritten\n")
+        raise typer.Exit(2)
+    (folder / "docs").mkdir(parents=True, exist_ok=True)
+    write_text_atomic(cfg, TEMPLATE.replace("{name}", _slug(folder.resolve().name)))
+    typer.echo(f"wrote {cfg} and {folder / 'docs'}/; put your documents there, then run "
+               f"`ballast run {cfg}`")
+
+
+def _slug(name: str) -> str:
+    s = "".join(c if c.isalnum() or c in "._-" else "-" for c in name).strip("-.")
+    return s or "project"

@@ -1,0 +1,83 @@
+"""Everything ballast shows a person: progress on stderr, results on stdout."""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from typing import Any
+
+
+class StderrProgress:
+    """Progress lines on stderr; redraws in place on a terminal, throttled lines otherwise."""
+
+    def __init__(self, quiet: bool = False) -> None:
+        self.quiet = quiet
+        self.tty = sys.stderr.isatty()
+        self._last: dict[str, float] = {}
+        self._start: dict[str, float] = {}
+
+    def step(self, label: str, done: int, total: int) -> None:
+        if self.quiet:
+            return
+        now = time.monotonic()
+        self._start.setdefault(label, now)
+        final = done >= total
+        if not final and now - self._last.get(label, 0.0) < (0.2 if self.tty else 5.0):
+            return
+        self._last[label] = now
+        elapsed = now - self._start[label]
+        rate = done / elapsed if elapsed > 0 else 0.0
+        eta = f", ~{(total - done) / rate:.0f}s left" if rate > 0 and not final else ""
+        msg = f"  {label}: {done}/{total} ({elapsed:.0f}s{eta})"
+        if self.tty:
+            sys.stderr.write("\r\x1b[2K" + msg + ("\n" if final else ""))
+        else:
+            sys.stderr.write(msg + "\n")
+        sys.stderr.flush()
+
+    def info(self, message: str) -> None:
+        if not self.quiet:
+            sys.stderr.write(message + "\n")
+            sys.stderr.flush()
+
+
+def emit_json(obj: Any) -> None:
+    sys.stdout.write(json.dumps(obj, indent=2, sort_keys=True, ensure_ascii=False) + "\n")
+
+
+def _fmt_summary(summary: Any) -> str:
+    if isinstance(summary, dict):
+        return ", ".join(f"{k}={_fmt_summary(v)}" for k, v in summary.items()
+                         if not isinstance(v, (list,)) or len(v) < 8)
+    return str(summary)
+
+
+def stage_line(result: dict[str, Any]) -> str:
+    state = "skipped (unchanged)" if result.get("skipped") else f"done in {result['seconds']:.1f}s"
+    return f"{result['stage']:<9} {state}: {_fmt_summary(result['summary'])}"
+
+
+def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
+    lines = []
+    for split, info in metrics["splits"].items():
+        comp = info["comparisons"].get("tuned_vs_base", {})
+        lines.append(f"split {split} ({info['n_queries']} queries)")
+        lines.append(f"  {'metric':<12} {'base':>7} {'tuned':>7} {'diff':>8}  "
+                     f"{round(100 * metrics['confidence'])}% interval of diff   p")
+        for m in shown:
+            if m not in info["models"].get("base", {}):
+                continue
+            b = info["models"]["base"][m]["mean"]
+            t = info["models"]["tuned"][m]["mean"]
+            c = comp.get(m)
+            tail = f"  [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}]   {c['p_value']:.4f}" if c else ""
+            lines.append(f"  {m:<12} {b:7.4f} {t:7.4f} {t - b:+8.4f}{tail}")
+    return "\n".join(lines)
+
+
+def gate_text(verdict: dict[str, Any]) -> str:
+    lines = [f"gate: {verdict['summary']}"]
+    for s in verdict["splits"]:
+        lines.append(f"  {'pass' if s['passed'] else 'FAIL'}  {s['split']}: {s['reason']}")
+    return "\n".join(lines)

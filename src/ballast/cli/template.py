@@ -1,0 +1,68 @@
+"""The commented config template that `ballast init` writes (also configs/template.toml)."""
+
+TEMPLATE = '''\
+# ballast configuration. Paths are relative to this file.
+# Every key is optional; the values shown are the defaults.
+
+name = "{name}"            # names the run folder (runs/<name>) and the bundle
+seed = 0                   # one seed for every stage: same inputs + seed -> same files
+# run_dir = "runs/{name}"  # where the stages write (default runs/<name>)
+base_model = "packaged:all-MiniLM-L6-v2"   # or a local sentence-transformers folder
+
+[ingest]
+docs = "docs"              # a folder of .txt .md .html .jsonl .csv .parquet files
+max_tokens = 120           # passage length in base-model tokens
+overlap_tokens = 24        # trailing sentences repeated at the start of the next passage
+min_tokens = 8             # shorter passages are dropped (and counted)
+id_field = "id"            # for .jsonl/.csv/.parquet: the fields holding id, text, title
+text_field = "text"
+title_field = "title"
+
+[synth]
+generators = ["ict", "keywords"]  # inverse-cloze sentences; TF-IDF keyword queries
+ict_per_passage = 1
+ict_remove_prob = 0.9      # how often the query sentence is cut from the positive
+ict_min_words = 6
+keywords_per_passage = 1
+keywords_min_terms = 2
+keywords_max_terms = 4
+questions = ""             # a JSONL of real questions: {"id","text","doc_id","quote"}
+
+[split]
+test_fraction = 0.2        # share of documents held out for the test split
+dev_fraction = 0.1         # share held out for dev (never gated)
+leakage_threshold = 0.9    # word 3-gram Jaccard at which held-out passages count as leaked
+
+[mine]
+negatives = 1              # hard negatives per training pair (0 = in-batch only)
+window_start = 0           # candidate ranks [window_start, window_end) of the base ranking
+window_end = 30
+max_relative = 0.95        # drop candidates scoring above this fraction of the positive
+sample = "random"          # "random" inside the window, or "top"
+exclude_same_doc = false   # also drop candidates from the positive's own document
+
+[train]
+epochs = 1
+batch_size = 32
+learning_rate = 5e-5
+warmup_ratio = 0.1
+max_seq_length = 128
+threads = 0                # 0 = torch's default
+checkpoint_steps = 0       # save (and resume from) a checkpoint every N steps; 0 = off
+
+[evaluate]
+splits = ["dev", "test", "human"]
+metrics = ["ndcg@10", "mrr@10", "recall@10", "precision@10", "map@10", "hit_rate@10"]
+bootstrap_resamples = 10000
+confidence = 0.95
+batch_size = 64
+
+[gate]
+splits = ["test", "human"] # the tuned model must win on every one of these
+primary_metric = "ndcg@10"
+min_gain = 0.0             # required mean gain; the interval must also lie above zero
+
+[export]
+dir = ""                   # default: <run_dir>/bundle
+version = ""               # default: v-<first 12 hex digits of the tuned weights hash>
+'''

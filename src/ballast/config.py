@@ -1,0 +1,365 @@
+"""Configuration: one frozen dataclass per stage, loaded from TOML, overridden with --set.
+
+Every key is checked before any stage runs; an error names the key, the bad value and what is
+allowed. Paths in a config file are relative to the folder of that file.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import tomllib
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import ConfigError
+from .metrics import parse_metric
+
+PACKAGED_BASE = "packaged:all-MiniLM-L6-v2"
+
+
+def _fail(key: str, value: Any, expected: str) -> typing.NoReturn:
+    raise ConfigError(f"got {value!r}; expected {expected}", key=key)
+
+
+def _range(key: str, value: float, lo: float | None = None, hi: float | None = None,
+           *, lo_open: bool = False, hi_open: bool = False) -> None:
+    bad = (lo is not None and (value <= lo if lo_open else value < lo)) or (
+        hi is not None and (value >= hi if hi_open else value > hi)
+    )
+    if bad:
+        left = "(" if lo_open else "["
+        right = ")" if hi_open else "]"
+        _fail(key, value, f"a number in {left}{lo if lo is not None else '-inf'}, "
+                          f"{hi if hi is not None else 'inf'}{right}")
+
+
+@dataclass(frozen=True)
+class IngestConfig:
+    docs: str = "docs"
+    extensions: tuple[str, ...] = (".txt", ".md", ".html", ".htm", ".jsonl", ".csv", ".parquet")
+    max_tokens: int = 120
+    overlap_tokens: int = 24
+    min_tokens: int = 8
+    id_field: str = "id"
+    text_field: str = "text"
+    title_field: str = "title"
+
+    def __post_init__(self) -> None:
+        _range("ingest.max_tokens", self.max_tokens, 16, 512)
+        _range("ingest.overlap_tokens", self.overlap_tokens, 0, self.max_tokens // 2)
+        _range("ingest.min_tokens", self.min_tokens, 1, self.max_tokens)
+        for ext in self.extensions:
+            if not ext.startswith("."):
+                _fail("ingest.extensions", ext, "extensions that start with a dot, like '.md'")
+
+
+@dataclass(frozen=True)
+class SynthConfig:
+    generators: tuple[str, ...] = ("ict", "keywords")
+    ict_per_passage: int = 1
+    ict_remove_prob: float = 0.9
+    ict_min_words: int = 6
+    keywords_per_passage: int = 1
+    keywords_min_terms: int = 2
+    keywords_max_terms: int = 4
+    questions: str = ""
+
+    def __post_init__(self) -> None:
+        for g in self.generators:
+            if g not in ("ict", "keywords"):
+                _fail("synth.generators", g, "a list drawn from 'ict', 'keywords'")
+        _range("synth.ict_per_passage", self.ict_per_passage, 0, 20)
+        _range("synth.ict_remove_prob", self.ict_remove_prob, 0.0, 1.0)
+        _range("synth.ict_min_words", self.ict_min_words, 1, 100)
+        _range("synth.keywords_per_passage", self.keywords_per_passage, 0, 20)
+        _range("synth.keywords_min_terms", self.keywords_min_terms, 1, 20)
+        _range("synth.keywords_max_terms", self.keywords_max_terms, self.keywords_min_terms, 20)
+
+
+@dataclass(frozen=True)
+class SplitConfig:
+    test_fraction: float = 0.2
+    dev_fraction: float = 0.1
+    leakage_threshold: float = 0.9
+
+    def __post_init__(self) -> None:
+        _range("split.test_fraction", self.test_fraction, 0.0, 0.9, lo_open=True)
+        _range("split.dev_fraction", self.dev_fraction, 0.0, 0.5)
+        if self.test_fraction + self.dev_fraction >= 1.0:
+            _fail("split.dev_fraction", self.dev_fraction,
+                  "test_fraction + dev_fraction below 1, so some documents remain for training")
+        _range("split.leakage_threshold", self.leakage_threshold, 0.0, 1.0, lo_open=True)
+
+
+@dataclass(frozen=True)
+class MineConfig:
+    negatives: int = 1
+    window_start: int = 0
+    window_end: int = 30
+    max_relative: float = 0.95
+    sample: str = "random"
+    exclude_same_doc: bool = False
+
+    def __post_init__(self) -> None:
+        _range("mine.negatives", self.negatives, 0, 64)
+        _range("mine.window_start", self.window_start, 0, 10_000)
+        _range("mine.window_end", self.window_end, self.window_start + 1, 10_000)
+        _range("mine.max_relative", self.max_relative, 0.0, 1.0, lo_open=True)
+        if self.sample not in ("random", "top"):
+            _fail("mine.sample", self.sample, "'random' or 'top'")
+
+
+@dataclass(frozen=True)
+class TrainConfig:
+    epochs: int = 1
+    batch_size: int = 32
+    learning_rate: float = 5e-5
+    warmup_ratio: float = 0.1
+    max_seq_length: int = 128
+    threads: int = 0
+    checkpoint_steps: int = 0
+
+    def __post_init__(self) -> None:
+        _range("train.epochs", self.epochs, 1, 100)
+        _range("train.batch_size", self.batch_size, 2, 4096)
+        _range("train.learning_rate", self.learning_rate, 0.0, 1.0, lo_open=True)
+        _range("train.warmup_ratio", self.warmup_ratio, 0.0, 0.5)
+        _range("train.max_seq_length", self.max_seq_length, 16, 512)
+        _range("train.threads", self.threads, 0, 512)
+        _range("train.checkpoint_steps", self.checkpoint_steps, 0, 10**9)
+
+
+@dataclass(frozen=True)
+class EvaluateConfig:
+    splits: tuple[str, ...] = ("dev", "test", "human")
+    metrics: tuple[str, ...] = (
+        "ndcg@10", "mrr@10", "recall@10", "precision@10", "map@10", "hit_rate@10",
+    )
+    bootstrap_resamples: int = 10_000
+    confidence: float = 0.95
+    batch_size: int = 64
+
+    def __post_init__(self) -> None:
+        for s in self.splits:
+            if s not in ("train", "dev", "test", "human"):
+                _fail("evaluate.splits", s, "a list drawn from 'train', 'dev', 'test', 'human'")
+        for m in self.metrics:
+            try:
+                parse_metric(m)
+            except ValueError as exc:
+                raise ConfigError(str(exc), key="evaluate.metrics") from None
+        _range("evaluate.bootstrap_resamples", self.bootstrap_resamples, 100, 10**7)
+        _range("evaluate.confidence", self.confidence, 0.0, 1.0, lo_open=True, hi_open=True)
+        _range("evaluate.batch_size", self.batch_size, 1, 4096)
+
+
+@dataclass(frozen=True)
+class GateConfig:
+    splits: tuple[str, ...] = ("test", "human")
+    primary_metric: str = "ndcg@10"
+    min_gain: float = 0.0
+
+    def __post_init__(self) -> None:
+        if not self.splits:
+            _fail("gate.splits", list(self.splits), "at least one split")
+        for s in self.splits:
+            if s not in ("test", "human"):
+                _fail("gate.splits", s, "a list drawn from 'test', 'human' (dev is never gated)")
+        try:
+            parse_metric(self.primary_metric)
+        except ValueError as exc:
+            raise ConfigError(str(exc), key="gate.primary_metric") from None
+        _range("gate.min_gain", self.min_gain, 0.0, 1.0)
+
+
+@dataclass(frozen=True)
+class ExportConfig:
+    dir: str = ""
+    version: str = ""
+
+    def __post_init__(self) -> None:
+        if self.version and not all(c.isalnum() or c in "._-" for c in self.version):
+            _fail("export.version", self.version, "letters, digits, '.', '_' or '-' only")
+
+
+@dataclass(frozen=True)
+class Config:
+    name: str = "run"
+    seed: int = 0
+    run_dir: str = ""
+    base_model: str = PACKAGED_BASE
+    ingest: IngestConfig = field(default_factory=IngestConfig)
+    synth: SynthConfig = field(default_factory=SynthConfig)
+    split: SplitConfig = field(default_factory=SplitConfig)
+    mine: MineConfig = field(default_factory=MineConfig)
+    train: TrainConfig = field(default_factory=TrainConfig)
+    evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
+    gate: GateConfig = field(default_factory=GateConfig)
+    export: ExportConfig = field(default_factory=ExportConfig)
+
+    def __post_init__(self) -> None:
+        if not self.name or not all(c.isalnum() or c in "._-" for c in self.name):
+            _fail("name", self.name, "a non-empty name of letters, digits, '.', '_' or '-'")
+        _range("seed", self.seed, 0, 2**32 - 1)
+        for s in self.gate.splits:
+            if s not in self.evaluate.splits:
+                _fail("gate.splits", s, f"a split that evaluate.splits lists {list(self.evaluate.splits)}")
+        if "human" in self.evaluate.splits and not self.synth.questions:
+            _fail("evaluate.splits", "human",
+                  "synth.questions set to a questions file when the 'human' split is evaluated")
+
+    def to_dict(self) -> dict[str, Any]:
+        return _to_plain(dataclasses.asdict(self))
+
+    @property
+    def run_path(self) -> Path:
+        return Path(self.run_dir or f"runs/{self.name}")
+
+
+SECTIONS: dict[str, type] = {
+    "ingest": IngestConfig, "synth": SynthConfig, "split": SplitConfig, "mine": MineConfig,
+    "train": TrainConfig, "evaluate": EvaluateConfig, "gate": GateConfig, "export": ExportConfig,
+}
+PATH_KEYS = {("ingest", "docs"), ("synth", "questions"), ("", "run_dir"), ("", "base_model"),
+             ("export", "dir")}
+
+
+def _to_plain(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {k: _to_plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_to_plain(v) for v in obj]
+    return obj
+
+
+def _unknown(key: str, allowed: list[str]) -> ConfigError:
+    close = difflib.get_close_matches(key.rsplit(".", 1)[-1], allowed, n=1)
+    hint = f" (did you mean '{close[0]}'?)" if close else ""
+    return ConfigError(f"no such key{hint}; allowed keys: {', '.join(allowed)}", key=key)
+
+
+def _coerce(key: str, value: Any, tp: Any) -> Any:
+    origin = typing.get_origin(tp)
+    if origin is tuple:
+        if not isinstance(value, (list, tuple)):
+            _fail(key, value, "a list of strings")
+        if not all(isinstance(v, str) for v in value):
+            _fail(key, value, "a list of strings")
+        return tuple(value)
+    if tp is bool:
+        if not isinstance(value, bool):
+            _fail(key, value, "true or false")
+        return value
+    if tp is int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            _fail(key, value, "an integer")
+        return value
+    if tp is float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            _fail(key, value, "a number")
+        return float(value)
+    if tp is str:
+        if not isinstance(value, str):
+            _fail(key, value, "a string")
+        return value
+    raise AssertionError(f"unhandled config type {tp}")  # pragma: no cover - programming error
+
+
+def _build(cls: type, data: dict[str, Any], prefix: str) -> Any:
+    hints = typing.get_type_hints(cls)
+    names = [f.name for f in dataclasses.fields(cls)]
+    kwargs = {}
+    for key, value in data.items():
+        full = f"{prefix}{key}"
+        if key not in names:
+            raise _unknown(full, names)
+        tp = hints[key]
+        if isinstance(tp, type) and dataclasses.is_dataclass(tp):
+            if not isinstance(value, dict):
+                _fail(full, value, f"a table [{full}]")
+            kwargs[key] = _build(tp, value, f"{full}.")
+        else:
+            kwargs[key] = _coerce(full, value, tp)
+    return cls(**kwargs)
+
+
+def _parse_override(item: str) -> tuple[list[str], Any]:
+    if "=" not in item:
+        raise ConfigError(f"--set {item!r}: expected KEY=VALUE, like train.epochs=2")
+    key, raw = item.split("=", 1)
+    key = key.strip()
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = raw
+    return key.split("."), value
+
+
+def _resolve_paths(data: dict[str, Any], base: Path) -> None:
+    for section, key in PATH_KEYS:
+        table = data.get(section, {}) if section else data
+        if not isinstance(table, dict):
+            continue
+        value = table.get(key)
+        if not isinstance(value, str) or not value or value.startswith("packaged:"):
+            continue
+        p = Path(value).expanduser()
+        table[key] = str(p if p.is_absolute() else (base / p))
+
+
+def load_config(path: str | Path | None = None, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """Load a TOML config (or the defaults), apply ``KEY=VALUE`` overrides, validate."""
+    data: dict[str, Any] = {}
+    source = None
+    if path is not None:
+        path = Path(path)
+        source = str(path)
+        try:
+            raw = path.read_bytes()
+        except OSError as exc:
+            raise ConfigError(f"cannot read config: {exc.strerror}", source=source) from None
+        try:
+            data = tomllib.loads(raw.decode("utf-8"))
+        except UnicodeDecodeError:
+            raise ConfigError("not valid UTF-8", source=source) from None
+        except tomllib.TOMLDecodeError as exc:
+            raise ConfigError(f"not valid TOML: {exc}", source=source) from None
+        _resolve_paths(data, path.parent)
+    return build_config(data, overrides, source=source)
+
+
+def load_run_config(run_dir: str | Path, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """The config a run folder was made with (its ``config.json``), plus overrides."""
+    import json
+
+    p = Path(run_dir) / "config.json"
+    try:
+        data = json.loads(p.read_text("utf-8"))
+    except FileNotFoundError:
+        raise ConfigError("no config.json here: give the config file, or a run folder that "
+                          "a stage has written", source=str(run_dir)) from None
+    except (ValueError, UnicodeDecodeError):
+        raise ConfigError("config.json is damaged; give the config file", source=str(p)) from None
+    data["run_dir"] = str(run_dir)
+    return build_config(data, overrides, source=str(p))
+
+
+def build_config(data: dict[str, Any], overrides: list[str] | tuple[str, ...] = (), *,
+                 source: str | None = None) -> Config:
+    for item in overrides:
+        parts, value = _parse_override(item)
+        table = data
+        for p in parts[:-1]:
+            table = table.setdefault(p, {})
+            if not isinstance(table, dict):
+                raise ConfigError("is not a table", key=".".join(parts[:-1]))
+        table[parts[-1]] = value
+    try:
+        return _build(Config, data, "")
+    except ConfigError as exc:
+        if source and not exc.source:
+            raise ConfigError(str(exc), source=source) from None
+        raise

@@ -1,0 +1,92 @@
+"""Generators that need no model.
+
+- Inverse cloze task (Lee, Chang & Toutanova, ACL 2019): one sentence of the passage is the
+  pseudo-query; with probability ``ict_remove_prob`` it is removed from the training positive,
+  so the model learns context rather than string matching.
+- Keyword queries: a few of the passage's most distinctive terms (TF-IDF over the corpus), in
+  the order they appear, as a short keyword search.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+import numpy as np
+
+from ..config import SynthConfig
+from ..corpus import split_sentences
+from ..files import sha256_bytes
+
+TOKEN_PATTERN = r"(?u)\b\w[\w\-]*\w\b|\b\w\b"
+
+
+def query_id(origin: str, passage_id: str, k: int) -> str:
+    key = "\0".join((origin, passage_id, str(k))).encode()
+    return f"{origin}-{sha256_bytes(key)[:14]}"
+
+
+def ict_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Generator) -> list[dict]:
+    out = []
+    for p in passages:
+        sents = split_sentences(p["text"])
+        usable = [s for s in sents if len(s.split()) >= cfg.ict_min_words]
+        if len(sents) < 2 or not usable:
+            continue
+        picks = rng.permutation(len(usable))[: cfg.ict_per_passage]
+        for k, i in enumerate(sorted(int(x) for x in picks)):
+            masked = bool(rng.random() < cfg.ict_remove_prob)
+            out.append({"id": query_id("ict", p["id"], k), "text": usable[i],
+                        "passage_id": p["id"], "origin": "ict", "meta": {"masked": masked}})
+    return out
+
+
+def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Generator) -> list[dict]:
+    from sklearn.feature_extraction.text import TfidfVectorizer
+
+    if not passages:
+        return []
+    vec = TfidfVectorizer(token_pattern=TOKEN_PATTERN, stop_words="english", sublinear_tf=True,
+                          min_df=1, max_df=0.5 if len(passages) >= 20 else 1.0)
+    try:
+        matrix = vec.fit_transform([p["text"] for p in passages]).tocsr()
+    except ValueError:  # every term is a stop word
+        return []
+    vocab = vec.get_feature_names_out()
+    out = []
+    for row, p in enumerate(passages):
+        start, end = matrix.indptr[row], matrix.indptr[row + 1]
+        idx, w = matrix.indices[start:end], matrix.data[start:end]
+        order = np.lexsort((idx, -w))[:8]  # top 8 by weight, ties by term index
+        if len(order) < cfg.keywords_min_terms:
+            continue
+        cand, weight = idx[order], w[order]
+        for k in range(cfg.keywords_per_passage):
+            n = int(rng.integers(cfg.keywords_min_terms,
+                                 min(cfg.keywords_max_terms, len(cand)) + 1))
+            chosen = rng.choice(len(cand), size=n, replace=False, p=weight / weight.sum())
+            terms = []
+            for c in chosen:
+                term = str(vocab[cand[c]])
+                m = re.search(rf"(?<![\w-]){re.escape(term)}(?![\w-])", p["text"], re.IGNORECASE)
+                terms.append((m.start() if m else 10**9, m.group(0) if m else term))
+            text = " ".join(t for _, t in sorted(terms))
+            out.append({"id": query_id("keywords", p["id"], k), "text": text,
+                        "passage_id": p["id"], "origin": "keywords", "meta": {}})
+    return out
+
+
+GENERATORS = {"ict": ict_queries, "keywords": keyword_queries}
+
+
+def synthesize(passages: list[dict], cfg: SynthConfig,
+               rng: np.random.Generator) -> tuple[list[dict], dict[str, Any]]:
+    """Run each configured generator in turn, with one seeded generator each."""
+    queries: list[dict] = []
+    stats: dict[str, Any] = {}
+    seeds = rng.integers(0, 2**63 - 1, size=len(cfg.generators))
+    for name, seed in zip(cfg.generators, seeds, strict=True):
+        made = GENERATORS[name](passages, cfg, np.random.default_rng(int(seed)))
+        stats[name] = len(made)
+        queries.extend(made)
+    return queries, stats
