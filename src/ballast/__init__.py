@@ -11,6 +11,15 @@ from .metrics import compute, parse_metric  # noqa: E402
 from .stats import compare  # noqa: E402
 
 __all__ = [
-    "BallastError", "Config", "ConfigError", "GateFailed", "InputError", "__version__",
-    "compare", "compute", "decide", "load_config", "parse_metric",
+    "BallastError",
+    "Config",
+    "ConfigError",
+    "GateFailed",
+    "InputError",
+    "__version__",
+    "compare",
+    "compute",
+    "decide",
+    "load_config",
+    "parse_metric",
 ]

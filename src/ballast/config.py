@@ -24,16 +24,27 @@ def _fail(key: str, value: Any, expected: str) -> typing.NoReturn:
     raise ConfigError(f"got {value!r}; expected {expected}", key=key)
 
 
-def _range(key: str, value: float, lo: float | None = None, hi: float | None = None,
-           *, lo_open: bool = False, hi_open: bool = False) -> None:
+def _range(
+    key: str,
+    value: float,
+    lo: float | None = None,
+    hi: float | None = None,
+    *,
+    lo_open: bool = False,
+    hi_open: bool = False,
+) -> None:
     bad = (lo is not None and (value <= lo if lo_open else value < lo)) or (
         hi is not None and (value >= hi if hi_open else value > hi)
     )
     if bad:
         left = "(" if lo_open else "["
         right = ")" if hi_open else "]"
-        _fail(key, value, f"a number in {left}{lo if lo is not None else '-inf'}, "
-                          f"{hi if hi is not None else 'inf'}{right}")
+        _fail(
+            key,
+            value,
+            f"a number in {left}{lo if lo is not None else '-inf'}, "
+            f"{hi if hi is not None else 'inf'}{right}",
+        )
 
 
 @dataclass(frozen=True)
@@ -89,8 +100,11 @@ class SplitConfig:
         _range("split.test_fraction", self.test_fraction, 0.0, 0.9, lo_open=True)
         _range("split.dev_fraction", self.dev_fraction, 0.0, 0.5)
         if self.test_fraction + self.dev_fraction >= 1.0:
-            _fail("split.dev_fraction", self.dev_fraction,
-                  "test_fraction + dev_fraction below 1, so some documents remain for training")
+            _fail(
+                "split.dev_fraction",
+                self.dev_fraction,
+                "test_fraction + dev_fraction below 1, so some documents remain for training",
+            )
         _range("split.leakage_threshold", self.leakage_threshold, 0.0, 1.0, lo_open=True)
 
 
@@ -136,7 +150,12 @@ class TrainConfig:
 class EvaluateConfig:
     splits: tuple[str, ...] = ("dev", "test", "human")
     metrics: tuple[str, ...] = (
-        "ndcg@10", "mrr@10", "recall@10", "precision@10", "map@10", "hit_rate@10",
+        "ndcg@10",
+        "mrr@10",
+        "recall@10",
+        "precision@10",
+        "map@10",
+        "hit_rate@10",
     )
     bootstrap_resamples: int = 10_000
     confidence: float = 0.95
@@ -206,10 +225,11 @@ class Config:
         _range("seed", self.seed, 0, 2**32 - 1)
         for s in self.gate.splits:
             if s not in self.evaluate.splits:
-                _fail("gate.splits", s, f"a split that evaluate.splits lists {list(self.evaluate.splits)}")
-        if "human" in self.evaluate.splits and not self.synth.questions:
-            _fail("evaluate.splits", "human",
-                  "synth.questions set to a questions file when the 'human' split is evaluated")
+                _fail(
+                    "gate.splits",
+                    s,
+                    f"a split that evaluate.splits lists {list(self.evaluate.splits)}",
+                )
 
     def to_dict(self) -> dict[str, Any]:
         return _to_plain(dataclasses.asdict(self))
@@ -220,11 +240,22 @@ class Config:
 
 
 SECTIONS: dict[str, type] = {
-    "ingest": IngestConfig, "synth": SynthConfig, "split": SplitConfig, "mine": MineConfig,
-    "train": TrainConfig, "evaluate": EvaluateConfig, "gate": GateConfig, "export": ExportConfig,
+    "ingest": IngestConfig,
+    "synth": SynthConfig,
+    "split": SplitConfig,
+    "mine": MineConfig,
+    "train": TrainConfig,
+    "evaluate": EvaluateConfig,
+    "gate": GateConfig,
+    "export": ExportConfig,
 }
-PATH_KEYS = {("ingest", "docs"), ("synth", "questions"), ("", "run_dir"), ("", "base_model"),
-             ("export", "dir")}
+PATH_KEYS = {
+    ("ingest", "docs"),
+    ("synth", "questions"),
+    ("", "run_dir"),
+    ("", "base_model"),
+    ("export", "dir"),
+}
 
 
 def _to_plain(obj: Any) -> Any:
@@ -310,7 +341,9 @@ def _resolve_paths(data: dict[str, Any], base: Path) -> None:
         table[key] = str(p if p.is_absolute() else (base / p))
 
 
-def load_config(path: str | Path | None = None, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+def load_config(
+    path: str | Path | None = None, overrides: list[str] | tuple[str, ...] = ()
+) -> Config:
     """Load a TOML config (or the defaults), apply ``KEY=VALUE`` overrides, validate."""
     data: dict[str, Any] = {}
     source = None
@@ -339,16 +372,19 @@ def load_run_config(run_dir: str | Path, overrides: list[str] | tuple[str, ...] 
     try:
         data = json.loads(p.read_text("utf-8"))
     except FileNotFoundError:
-        raise ConfigError("no config.json here: give the config file, or a run folder that "
-                          "a stage has written", source=str(run_dir)) from None
+        raise ConfigError(
+            "no config.json here: give the config file, or a run folder that a stage has written",
+            source=str(run_dir),
+        ) from None
     except (ValueError, UnicodeDecodeError):
         raise ConfigError("config.json is damaged; give the config file", source=str(p)) from None
     data["run_dir"] = str(run_dir)
     return build_config(data, overrides, source=str(p))
 
 
-def build_config(data: dict[str, Any], overrides: list[str] | tuple[str, ...] = (), *,
-                 source: str | None = None) -> Config:
+def build_config(
+    data: dict[str, Any], overrides: list[str] | tuple[str, ...] = (), *, source: str | None = None
+) -> Config:
     for item in overrides:
         parts, value = _parse_override(item)
         table = data
@@ -361,5 +397,5 @@ def build_config(data: dict[str, Any], overrides: list[str] | tuple[str, ...] = 
         return _build(Config, data, "")
     except ConfigError as exc:
         if source and not exc.source:
-            raise ConfigError(str(exc), source=source) from None
+            raise ConfigError(exc.detail, key=exc.key, source=source) from None
         raise

@@ -22,7 +22,9 @@ from .files import read_jsonl, read_text, require_str, sha256_bytes
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u200b-\u200f\u2028\u2029\ufeff]")
 _SPACES = re.compile(r"[ \t\r\f\v\u00a0]+")
-_SENTENCE_END = re.compile(r"(?<=[.!?])[\"')\]]*\s+(?=[\"'(\[]?[A-Z0-9])")
+# A sentence ends after . ! or ? and any closing quotes or brackets, before a space and a capital
+# or digit (optionally after an opening quote or bracket); the closing marks stay with it.
+_SENTENCE_END = re.compile(r"(?<=[.!?])[\"')\]]*(?=\s+[\"'(\[]?[A-Z0-9])")
 
 
 @dataclass
@@ -53,7 +55,10 @@ def collapse(text: str) -> str:
 
 
 def split_sentences(paragraph: str) -> list[str]:
-    return [s.strip() for s in _SENTENCE_END.split(" ".join(paragraph.split())) if s.strip()]
+    text = " ".join(paragraph.split())
+    cuts = [m.end() for m in _SENTENCE_END.finditer(text)]
+    pieces = [text[a:b] for a, b in zip([0, *cuts], [*cuts, len(text)], strict=True)]
+    return [s.strip() for s in pieces if s.strip()]
 
 
 def passage_id(doc_id: str, text: str) -> str:
@@ -111,8 +116,22 @@ def parse_markdown(text: str, fallback_title: str) -> tuple[str, list[tuple[str,
 
 
 class _HTMLText(HTMLParser):
-    BLOCK = {"p", "div", "li", "br", "tr", "section", "article", "table", "ul", "ol", "pre",
-             "blockquote", "dd", "dt"}
+    BLOCK = {
+        "p",
+        "div",
+        "li",
+        "br",
+        "tr",
+        "section",
+        "article",
+        "table",
+        "ul",
+        "ol",
+        "pre",
+        "blockquote",
+        "dd",
+        "dt",
+    }
     SKIP = {"script", "style", "noscript", "template", "svg", "head"}
 
     def __init__(self) -> None:
@@ -173,17 +192,24 @@ def parse_html(text: str, fallback_title: str) -> tuple[str, list[tuple[str, lis
     return parser.result(fallback_title)
 
 
-def _record_docs(rows: Iterator[tuple[int, dict]], path: Path, cfg: IngestConfig) -> Iterator[Document]:
+def _record_docs(
+    rows: Iterator[tuple[int, dict]], path: Path, rel: str, cfg: IngestConfig
+) -> Iterator[Document]:
     for line, row in rows:
         doc_id = require_str(row, cfg.id_field, path=path, line=line)
         text = require_str(row, cfg.text_field, path=path, line=line)
         title = row.get(cfg.title_field) or ""
         if not isinstance(title, str):
-            raise InputError(f"expected a string, found {type(title).__name__}",
-                             path=path, line=line, field=cfg.title_field)
+            raise InputError(
+                f"expected a string, found {type(title).__name__}",
+                path=path,
+                line=line,
+                field=cfg.title_field,
+            )
         paras = _paragraphs(normalise(text).split("\n"))
-        yield Document(str(doc_id), normalise(title) or str(doc_id), [("", paras)],
-                       f"{path.name}:{line}")
+        yield Document(
+            str(doc_id), normalise(title) or str(doc_id), [("", paras)], f"{rel}:{line}"
+        )
 
 
 def _csv_rows(path: Path) -> Iterator[tuple[int, dict]]:
@@ -195,8 +221,11 @@ def _csv_rows(path: Path) -> Iterator[tuple[int, dict]]:
     try:
         for row in reader:
             if None in row:
-                raise InputError(f"more fields than the header's {len(reader.fieldnames)}",
-                                 path=path, line=reader.line_num)
+                raise InputError(
+                    f"more fields than the header's {len(reader.fieldnames)}",
+                    path=path,
+                    line=reader.line_num,
+                )
             n += 1
             yield reader.line_num, row
     except csv.Error as exc:
@@ -216,16 +245,18 @@ def _parquet_rows(path: Path) -> Iterator[tuple[int, dict]]:
         raise InputError(f"not a readable parquet file: {exc}", path=path) from None
     if table.num_rows == 0:
         raise InputError("the file has no rows", path=path)
-    for i, row in enumerate(table.to_pylist(), start=1):
-        yield i, row
+    yield from enumerate(table.to_pylist(), start=1)
 
 
 def read_folder(folder: Path, cfg: IngestConfig) -> Iterator[Document]:
     """Every document under ``folder`` in a stable order (sorted relative paths)."""
     if not folder.is_dir():
         raise InputError("documents folder not found", path=folder, field="ingest.docs")
-    files = sorted(p for p in folder.rglob("*") if p.is_file()
-                   and not any(part.startswith(".") for part in p.relative_to(folder).parts))
+    files = sorted(
+        p
+        for p in folder.rglob("*")
+        if p.is_file() and not any(part.startswith(".") for part in p.relative_to(folder).parts)
+    )
     if not files:
         raise InputError("the documents folder has no files", path=folder)
     for path in files:
@@ -235,11 +266,15 @@ def read_folder(folder: Path, cfg: IngestConfig) -> Iterator[Document]:
             raise InputError(
                 f"unknown file type '{ext or path.name}'; expected one of "
                 f"{', '.join(cfg.extensions)} (set ingest.extensions, or move the file out)",
-                path=path)
+                path=path,
+            )
         if ext in (".jsonl", ".csv", ".parquet"):
-            rows = {".jsonl": lambda p: read_jsonl(p), ".csv": _csv_rows,
-                    ".parquet": _parquet_rows}[ext](path)
-            yield from _record_docs(rows, path, cfg)
+            rows = {
+                ".jsonl": lambda p: read_jsonl(p),
+                ".csv": _csv_rows,
+                ".parquet": _parquet_rows,
+            }[ext](path)
+            yield from _record_docs(rows, path, rel, cfg)
             continue
         text = read_text(path)
         if not text.strip():
@@ -266,6 +301,7 @@ def token_counter(tokenizer: Any) -> Counter:
             return []
         enc = tokenizer(texts, add_special_tokens=False)["input_ids"]
         return [len(x) for x in enc]
+
     return count
 
 
@@ -285,8 +321,9 @@ def _split_long(sentence: str, max_tokens: int, count: Counter) -> list[str]:
     return pieces
 
 
-def chunk_sentences(sentences: list[str], lens: list[int], max_tokens: int,
-                    overlap_tokens: int) -> list[list[int]]:
+def chunk_sentences(
+    sentences: list[str], lens: list[int], max_tokens: int, overlap_tokens: int
+) -> list[list[int]]:
     """Greedy packing of sentence indices into chunks, with sentence-level overlap."""
     chunks: list[list[int]] = []
     cur: list[int] = []
@@ -319,9 +356,15 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
     seen_docs: dict[str, str] = {}
     for d in docs:
         if d.doc_id in seen_docs:
-            raise InputError(f"duplicate document id {d.doc_id!r} (first seen at "
-                             f"{seen_docs[d.doc_id]})", path=folder / d.source.split(':')[0],
-                             field=cfg.id_field)
+            rel, _, line = d.source.rpartition(":")  # "<file>:<line>" for a record's source
+            if not (rel and line.isdigit()):
+                rel, line = d.source, ""
+            raise InputError(
+                f"duplicate document id {d.doc_id!r} (first seen at {seen_docs[d.doc_id]})",
+                path=folder / rel,
+                line=int(line) if line.isdigit() else None,
+                field=cfg.id_field,
+            )
         seen_docs[d.doc_id] = d.source
     passages: list[dict[str, Any]] = []
     seen_text: set[str] = set()
@@ -350,14 +393,23 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
                     continue
                 seen_text.add(key)
                 title = d.title if not heading or heading == d.title else f"{d.title} — {heading}"
-                passages.append({
-                    "id": passage_id(d.doc_id, text), "doc_id": d.doc_id, "text": text,
-                    "title": title, "meta": {"index": index, "tokens": ntok},
-                })
+                passages.append(
+                    {
+                        "id": passage_id(d.doc_id, text),
+                        "doc_id": d.doc_id,
+                        "text": text,
+                        "title": title,
+                        "meta": {"index": index, "tokens": ntok},
+                    }
+                )
                 index += 1
     if not passages:
         raise InputError("no passages: every document was empty or too short", path=folder)
-    stats = {"documents": len(docs), "passages": len(passages), "duplicates_dropped": dup,
-             "too_short_dropped": short,
-             "mean_tokens": round(sum(p["meta"]["tokens"] for p in passages) / len(passages), 1)}
+    stats = {
+        "documents": len(docs),
+        "passages": len(passages),
+        "duplicates_dropped": dup,
+        "too_short_dropped": short,
+        "mean_tokens": round(sum(p["meta"]["tokens"] for p in passages) / len(passages), 1),
+    }
     return IngestResult(passages, stats)

@@ -13,17 +13,28 @@ from .files import sha256_bytes
 from .progress import SILENT, Progress
 
 
-def encode(model: Any, texts: list[str], *, batch_size: int = 64, label: str = "encoding",
-           progress: Progress = SILENT) -> np.ndarray:
+def encode(
+    model: Any,
+    texts: list[str],
+    *,
+    batch_size: int = 64,
+    label: str = "encoding",
+    progress: Progress = SILENT,
+) -> np.ndarray:
     """Unit-normalised float32 embeddings, one row per text, in order."""
     import torch
 
     out = []
     with torch.inference_mode():
         for start in range(0, len(texts), batch_size):
-            batch = texts[start:start + batch_size]
-            emb = model.encode(batch, batch_size=batch_size, convert_to_numpy=True,
-                               normalize_embeddings=True, show_progress_bar=False)
+            batch = texts[start : start + batch_size]
+            emb = model.encode(
+                batch,
+                batch_size=batch_size,
+                convert_to_numpy=True,
+                normalize_embeddings=True,
+                show_progress_bar=False,
+            )
             out.append(np.asarray(emb, dtype=np.float32))
             progress.step(label, min(start + batch_size, len(texts)), len(texts))
     if not out:
@@ -65,9 +76,16 @@ class EmbeddingCache:
             raise
 
 
-def encode_cached(model: Any, model_fp: str, texts: list[str], cache: EmbeddingCache | None, *,
-                  batch_size: int = 64, label: str = "encoding",
-                  progress: Progress = SILENT) -> np.ndarray:
+def encode_cached(
+    model: Any,
+    model_fp: str,
+    texts: list[str],
+    cache: EmbeddingCache | None,
+    *,
+    batch_size: int = 64,
+    label: str = "encoding",
+    progress: Progress = SILENT,
+) -> np.ndarray:
     msl = int(getattr(model, "max_seq_length", 0) or 0)
     if cache is not None:
         hit = cache.get(model_fp, texts, msl)

@@ -41,6 +41,7 @@ class ConfigError(BallastError):
     def __init__(self, message: str, *, key: str | None = None, source: str | None = None) -> None:
         self.key = key
         self.source = source
+        self.detail = message
         where = ", ".join(x for x in (source, f"key '{key}'" if key else None) if x)
         super().__init__(f"{where}: {message}" if where else message)
 

@@ -12,8 +12,17 @@ from typing import Any
 from .errors import InputError
 
 SCHEMA_VERSION = 1
-LIBRARIES = ("ballast", "torch", "sentence-transformers", "transformers", "numpy", "scipy",
-             "scikit-learn", "datasets", "accelerate")
+LIBRARIES = (
+    "ballast",
+    "torch",
+    "sentence-transformers",
+    "transformers",
+    "numpy",
+    "scipy",
+    "scikit-learn",
+    "datasets",
+    "accelerate",
+)
 
 
 def library_versions() -> dict[str, str]:
@@ -29,8 +38,9 @@ def library_versions() -> dict[str, str]:
 def safe_name(name: str) -> str:
     """A bundle folder name that cannot climb out of the export folder."""
     if not name or name in (".", "..") or "/" in name or "\\" in name or "\0" in name:
-        raise InputError(f"bad bundle name {name!r}: expected a plain folder name",
-                         field="export.version")
+        raise InputError(
+            f"bad bundle name {name!r}: expected a plain folder name", field="export.version"
+        )
     return name
 
 
@@ -45,15 +55,31 @@ def model_facts(model_dir: Path) -> dict[str, Any]:
         if m.get("type", "").endswith("Pooling"):
             cfg = json.loads((model_dir / m["path"] / "config.json").read_text("utf-8"))
             dim = cfg.get("word_embedding_dimension")
-            pooling = next((k.removeprefix("pooling_mode_").removesuffix("_tokens")
-                            for k, v in cfg.items() if k.startswith("pooling_mode") and v), None)
-    st_cfg = json.loads((model_dir / "config_sentence_transformers.json").read_text("utf-8")) \
-        if (model_dir / "config_sentence_transformers.json").is_file() else {}
-    sb = json.loads((model_dir / "sentence_bert_config.json").read_text("utf-8")) \
-        if (model_dir / "sentence_bert_config.json").is_file() else {}
-    return {"dimension": dim, "pooling": pooling, "normalized": normalised,
-            "similarity": st_cfg.get("similarity_fn_name") or "cosine",
-            "max_seq_length": sb.get("max_seq_length")}
+            pooling = next(
+                (
+                    k.removeprefix("pooling_mode_").removesuffix("_tokens")
+                    for k, v in cfg.items()
+                    if k.startswith("pooling_mode") and v
+                ),
+                None,
+            )
+    st_cfg = (
+        json.loads((model_dir / "config_sentence_transformers.json").read_text("utf-8"))
+        if (model_dir / "config_sentence_transformers.json").is_file()
+        else {}
+    )
+    sb = (
+        json.loads((model_dir / "sentence_bert_config.json").read_text("utf-8"))
+        if (model_dir / "sentence_bert_config.json").is_file()
+        else {}
+    )
+    return {
+        "dimension": dim,
+        "pooling": pooling,
+        "normalized": normalised,
+        "similarity": st_cfg.get("similarity_fn_name") or "cosine",
+        "max_seq_length": sb.get("max_seq_length"),
+    }
 
 
 def copy_model(src: Path, dst: Path) -> None:

@@ -109,7 +109,8 @@ def read_jsonl(path: str | Path, *, allow_empty: bool = False) -> Iterator[tuple
             obj = json.loads(line)
         except json.JSONDecodeError as exc:
             raise InputError(
-                f"not valid JSON ({exc.msg} at column {exc.colno}); expected one JSON object a line",
+                f"not valid JSON ({exc.msg} at column {exc.colno}); "
+                "expected one JSON object per line",
                 path=path,
                 line=lineno,
             ) from None
@@ -120,7 +121,7 @@ def read_jsonl(path: str | Path, *, allow_empty: bool = False) -> Iterator[tuple
         seen += 1
         yield lineno, obj
     if seen == 0 and not allow_empty:
-        raise InputError("the file is empty; expected one JSON object a line", path=path)
+        raise InputError("the file is empty; expected one JSON object per line", path=path)
 
 
 def require_str(obj: dict, key: str, *, path: str | Path, line: int, optional: bool = False):

@@ -12,9 +12,17 @@ import numpy as np
 from .config import MineConfig
 
 
-def mine_one(ranked: np.ndarray, scores: np.ndarray, positive: int, positive_score: float,
-             *, doc_of: list[str], text_key: list[str], cfg: MineConfig,
-             rng: np.random.Generator) -> tuple[list[dict], list[dict]]:
+def mine_one(
+    ranked: np.ndarray,
+    scores: np.ndarray,
+    positive: int,
+    positive_score: float,
+    *,
+    doc_of: list[str],
+    text_key: list[str],
+    cfg: MineConfig,
+    rng: np.random.Generator,
+) -> tuple[list[dict], list[dict]]:
     """Negatives and dropped candidates for one query, as (index, score, rank) records."""
     ceiling = cfg.max_relative * positive_score
     kept, dropped = [], []

@@ -17,10 +17,16 @@ PICKLED = (".bin", ".pt", ".pth", ".ckpt", ".pkl")
 
 
 def _offline() -> None:
-    # Set in the process that loads a model, never at import: ballast never reaches a hub.
+    # Set in the process that loads a model, never at import: ballast never reaches a hub,
+    # and progress is ballast's own (on stderr, through the CLI), not the libraries' bars.
     os.environ["HF_HUB_OFFLINE"] = "1"
     os.environ["TRANSFORMERS_OFFLINE"] = "1"
     os.environ["HF_DATASETS_OFFLINE"] = "1"
+    os.environ.setdefault("TOKENIZERS_PARALLELISM", "false")
+    from transformers.utils import logging as hf_logging
+
+    hf_logging.disable_progress_bar()
+    hf_logging.set_verbosity_error()
 
 
 def resolve_model(spec: str) -> Path:
@@ -36,13 +42,17 @@ def resolve_model(spec: str) -> Path:
                 field="base_model",
             ) from None
     elif spec.startswith("packaged:"):
-        raise InputError(f"unknown packaged model {spec!r}; known: {', '.join(PACKAGED)}",
-                         field="base_model")
+        raise InputError(
+            f"unknown packaged model {spec!r}; known: {', '.join(PACKAGED)}", field="base_model"
+        )
     else:
         path = Path(spec)
     if not path.is_dir():
-        raise InputError("model not found: expected a local sentence-transformers folder "
-                         "(ballast never downloads models)", path=path)
+        raise InputError(
+            "model not found: expected a local sentence-transformers folder "
+            "(ballast never downloads models)",
+            path=path,
+        )
     check_model_folder(path)
     return path
 
@@ -54,7 +64,9 @@ def check_model_folder(path: Path) -> None:
     if pickled and not weights:
         raise InputError(
             f"weights stored as pickle ({pickled[0].name}); ballast loads safetensors only, "
-            "because unpickling can run arbitrary code", path=path)
+            "because unpickling can run arbitrary code",
+            path=path,
+        )
     if not weights:
         raise InputError("no .safetensors weights in the model folder", path=path)
     cfg = path / "config.json"
@@ -64,8 +76,11 @@ def check_model_folder(path: Path) -> None:
         except (UnicodeDecodeError, json.JSONDecodeError):
             raise InputError("config.json is not valid JSON", path=cfg) from None
         if isinstance(data, dict) and data.get("auto_map"):
-            raise InputError("the model needs remote code (auto_map in config.json); "
-                             "ballast does not run code shipped with models", path=cfg)
+            raise InputError(
+                "the model needs remote code (auto_map in config.json); "
+                "ballast does not run code shipped with models",
+                path=cfg,
+            )
 
 
 def model_fingerprint(path: Path) -> str:
@@ -87,8 +102,11 @@ def _cached_sha(path: str, mtime_ns: int, size: int) -> str:
 
 
 def weights_hash(path: Path) -> dict[str, str]:
-    return {p.relative_to(path).as_posix(): sha256_file(p)
-            for p in sorted(path.rglob("*.safetensors")) if "checkpoint" not in p.as_posix()}
+    return {
+        p.relative_to(path).as_posix(): sha256_file(p)
+        for p in sorted(path.rglob("*.safetensors"))
+        if "checkpoint" not in p.as_posix()
+    }
 
 
 def load_tokenizer(path: Path) -> Any:
@@ -105,7 +123,10 @@ def load_encoder(path: Path, *, max_seq_length: int | None = None) -> Any:
     from sentence_transformers import SentenceTransformer
 
     model = SentenceTransformer(
-        str(path), device="cpu", local_files_only=True, trust_remote_code=False,
+        str(path),
+        device="cpu",
+        local_files_only=True,
+        trust_remote_code=False,
         model_kwargs={"use_safetensors": True},
     )
     if max_seq_length is not None:

@@ -24,28 +24,40 @@ ORDER = ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "expor
 class StageSpec:
     name: str
     sections: tuple[str, ...]  # config sections (and top-level keys) the stage reads
-    inputs: tuple[str, ...]    # run-folder files it reads
-    outputs: tuple[str, ...]   # run-folder files or folders it writes
+    inputs: tuple[str, ...]  # run-folder files it reads
+    outputs: tuple[str, ...]  # run-folder files or folders it writes
     base_model: bool = False
 
 
 SPECS = {
     "ingest": StageSpec("ingest", ("ingest", "base_model"), (), ("passages.jsonl",), True),
     "synth": StageSpec("synth", ("synth", "seed"), ("passages.jsonl",), ("queries.jsonl",)),
-    "split": StageSpec("split", ("split", "seed"), ("passages.jsonl", "queries.jsonl"),
-                       ("splits.json", "qrels")),
-    "mine": StageSpec("mine", ("mine", "seed", "train.max_seq_length", "evaluate.batch_size"),
-                      ("passages.jsonl", "queries.jsonl", "splits.json"), ("negatives.jsonl",),
-                      True),
-    "train": StageSpec("train", ("train", "seed", "mine.negatives"),
-                       ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
-                       ("model", "train.json"), True),
-    "evaluate": StageSpec("evaluate", ("evaluate", "seed", "train.max_seq_length"),
-                          ("passages.jsonl", "queries.jsonl", "splits.json", "model"),
-                          ("metrics.json", "per_query.csv", "runs"), True),
+    "split": StageSpec(
+        "split", ("split", "seed"), ("passages.jsonl", "queries.jsonl"), ("splits.json", "qrels")
+    ),
+    "mine": StageSpec(
+        "mine",
+        ("mine", "seed", "train.max_seq_length", "evaluate.batch_size"),
+        ("passages.jsonl", "queries.jsonl", "splits.json"),
+        ("negatives.jsonl",),
+        True,
+    ),
+    "train": StageSpec(
+        "train",
+        ("train", "seed", "mine.negatives"),
+        ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
+        ("model", "train.json"),
+        True,
+    ),
+    "evaluate": StageSpec(
+        "evaluate",
+        ("evaluate", "seed", "train.max_seq_length"),
+        ("passages.jsonl", "queries.jsonl", "splits.json", "model"),
+        ("metrics.json", "per_query.csv", "runs"),
+        True,
+    ),
     "gate": StageSpec("gate", ("gate",), ("metrics.json",), ("gate.json",)),
-    "export": StageSpec("export", ("export", "name"), ("model", "gate.json", "metrics.json"),
-                        ()),
+    "export": StageSpec("export", ("export", "name"), ("model", "gate.json", "metrics.json"), ()),
 }
 
 
@@ -64,8 +76,11 @@ def external_inputs(run: Run, stage: str) -> dict[str, str]:
     """Fingerprints of inputs that live outside the run folder."""
     out = {}
     if stage == "ingest":
-        out["docs"] = fingerprint_tree(run.cfg.ingest.docs) if Path(run.cfg.ingest.docs).exists() \
+        out["docs"] = (
+            fingerprint_tree(run.cfg.ingest.docs)
+            if Path(run.cfg.ingest.docs).exists()
             else "missing"
+        )
     if stage == "synth" and run.cfg.synth.questions:
         q = Path(run.cfg.synth.questions)
         out["questions"] = fingerprint_tree(q) if q.exists() else "missing"
@@ -76,11 +91,18 @@ def external_inputs(run: Run, stage: str) -> dict[str, str]:
 
 def fingerprint(run: Run, stage: str) -> tuple[str, dict[str, Any]]:
     spec = SPECS[stage]
-    inputs = {name: fingerprint_tree(run.path(name)) if run.path(name).exists() else "missing"
-              for name in spec.inputs}
+    inputs = {
+        name: fingerprint_tree(run.path(name)) if run.path(name).exists() else "missing"
+        for name in spec.inputs
+    }
     inputs |= external_inputs(run, stage)
-    parts = {"stage": stage, "ballast": __version__, "config": _config_part(run, spec.sections),
-             "inputs": inputs, "force": run.force_export if stage == "export" else False}
+    parts = {
+        "stage": stage,
+        "ballast": __version__,
+        "config": _config_part(run, spec.sections),
+        "inputs": inputs,
+        "force": run.force_export if stage == "export" else False,
+    }
     return fingerprint_obj(parts), parts
 
 
@@ -117,9 +139,17 @@ def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str
     started = time.perf_counter()
     summary = STAGE_FUNCS[stage](run)
     seconds = round(time.perf_counter() - started, 3)
-    write_json(done_path(run, stage), {"stage": stage, "fingerprint": fp, **parts,
-                                       "libraries": library_versions(), "seconds": seconds,
-                                       "summary": summary})
+    write_json(
+        done_path(run, stage),
+        {
+            "stage": stage,
+            "fingerprint": fp,
+            **parts,
+            "libraries": library_versions(),
+            "seconds": seconds,
+            "summary": summary,
+        },
+    )
     return {"stage": stage, "skipped": False, "seconds": seconds, "summary": summary}
 
 
@@ -132,8 +162,9 @@ def run_all(run: Run, *, stop_before: str | None = None) -> list[dict[str, Any]]
         if stage == "export":
             verdict = json.loads(run.path("gate.json").read_text("utf-8"))
             if not verdict["passed"] and not run.force_export:
-                results.append({"stage": "export", "skipped": True,
-                                "summary": {"refused": verdict["summary"]}})
+                results.append(
+                    {"stage": "export", "skipped": True, "summary": {"refused": verdict["summary"]}}
+                )
                 break
         results.append(run_stage(run, stage, skip_unchanged=True))
     return results

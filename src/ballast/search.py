@@ -16,8 +16,15 @@ def id_ranks(ids: list[str]) -> np.ndarray:
     return ranks
 
 
-def top_k(queries: np.ndarray, corpus: np.ndarray, k: int, ids: list[str], *,
-          query_chunk: int = 256, corpus_chunk: int = 65536) -> tuple[np.ndarray, np.ndarray]:
+def top_k(
+    queries: np.ndarray,
+    corpus: np.ndarray,
+    k: int,
+    ids: list[str],
+    *,
+    query_chunk: int = 256,
+    corpus_chunk: int = 65536,
+) -> tuple[np.ndarray, np.ndarray]:
     """Indices and scores of the k best passages per query (dot product), best first.
 
     Every passage scoring at least the k-th best score in a chunk is kept before the final
@@ -32,11 +39,11 @@ def top_k(queries: np.ndarray, corpus: np.ndarray, k: int, ids: list[str], *,
     out_idx = np.empty((nq, k), dtype=np.int64)
     out_sc = np.empty((nq, k), dtype=np.float32)
     for qs in range(0, nq, query_chunk):
-        q = queries[qs:qs + query_chunk]
+        q = queries[qs : qs + query_chunk]
         best_idx = [np.empty(0, dtype=np.int64) for _ in range(q.shape[0])]
         best_sc = [np.empty(0, dtype=np.float32) for _ in range(q.shape[0])]
         for cs in range(0, n, corpus_chunk):
-            scores = q @ corpus[cs:cs + corpus_chunk].T
+            scores = q @ corpus[cs : cs + corpus_chunk].T
             kk = min(k, scores.shape[1])
             kth = np.partition(scores, scores.shape[1] - kk, axis=1)[:, scores.shape[1] - kk]
             for r in range(q.shape[0]):

@@ -22,21 +22,27 @@ def _rank_key(seed: int, doc_id: str) -> str:
     return sha256_bytes(f"{seed}\0{doc_id}".encode())
 
 
-def assign_documents(doc_ids: list[str], cfg: SplitConfig, seed: int,
-                     previous: dict[str, str] | None = None) -> dict[str, str]:
+def assign_documents(
+    doc_ids: list[str], cfg: SplitConfig, seed: int, previous: dict[str, str] | None = None
+) -> dict[str, str]:
     """doc_id -> split. New documents fill the split furthest below its target share."""
     n = len(doc_ids)
     need = 2 + (cfg.dev_fraction > 0)
     if n < need:
-        raise InputError(f"{n} document(s): splitting by document needs at least {need} "
-                         "(train, test" + (", dev" if need == 3 else "") + ")",
-                         field="split")
-    target = {"test": max(1, round(n * cfg.test_fraction)),
-              "dev": max(1, round(n * cfg.dev_fraction)) if cfg.dev_fraction > 0 else 0}
+        raise InputError(
+            f"{n} document(s): splitting by document needs at least {need} "
+            "(train, test" + (", dev" if need == 3 else "") + ")",
+            field="split",
+        )
+    target = {
+        "test": max(1, round(n * cfg.test_fraction)),
+        "dev": max(1, round(n * cfg.dev_fraction)) if cfg.dev_fraction > 0 else 0,
+    }
     target["train"] = n - target["test"] - target["dev"]
-    if target["train"] < 1:
-        target["test"] = max(1, target["test"] - 1)
-        target["train"] = n - target["test"] - target["dev"]
+    while target["train"] < 1:  # give train a document from the larger held-out split
+        big = "test" if target["test"] >= target["dev"] else "dev"
+        target[big] -= 1
+        target["train"] += 1
     present = set(doc_ids)
     out = {d: s for d, s in (previous or {}).items() if d in present and s in DOC_SPLITS}
     counts = Counter(out.values())
@@ -47,8 +53,9 @@ def assign_documents(doc_ids: list[str], cfg: SplitConfig, seed: int,
     return dict(sorted(out.items()))
 
 
-def assign_queries(queries: list[dict], passages: dict[str, dict],
-                   doc_split: dict[str, str]) -> dict[str, list[str]]:
+def assign_queries(
+    queries: list[dict], passages: dict[str, dict], doc_split: dict[str, str]
+) -> dict[str, list[str]]:
     """Split name -> query ids: human questions form 'human'; others follow their document."""
     out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, "human")}
     for q in queries:
@@ -76,11 +83,12 @@ def _shingles(text: str, n: int = 3) -> set[str]:
     words = collapse(text).lower().split()
     if len(words) < n:
         return {" ".join(words)}
-    return {" ".join(words[i:i + n]) for i in range(len(words) - n + 1)}
+    return {" ".join(words[i : i + n]) for i in range(len(words) - n + 1)}
 
 
-def leakage_audit(passages: list[dict], doc_split: dict[str, str], threshold: float,
-                  limit: int = 50) -> dict[str, Any]:
+def leakage_audit(
+    passages: list[dict], doc_split: dict[str, str], threshold: float, limit: int = 50
+) -> dict[str, Any]:
     """Pairs of identical or near-identical passages (word 3-gram Jaccard) on both sides of
     the train / held-out boundary."""
     sh = [_shingles(p["text"]) for p in passages]
@@ -100,8 +108,18 @@ def leakage_audit(passages: list[dict], doc_split: dict[str, str], threshold: fl
         for j, inter in shared.items():
             jac = inter / (len(sh[i]) + len(sh[j]) - inter)
             if jac >= threshold:
-                pairs.append({"held_out": p["id"], "split": split, "train": passages[j]["id"],
-                              "jaccard": round(jac, 4)})
+                pairs.append(
+                    {
+                        "held_out": p["id"],
+                        "split": split,
+                        "train": passages[j]["id"],
+                        "jaccard": round(jac, 4),
+                    }
+                )
     pairs.sort(key=lambda x: (-x["jaccard"], x["held_out"], x["train"]))
-    return {"threshold": threshold, "pairs_found": len(pairs), "pairs": pairs[:limit],
-            "identical": sum(1 for x in pairs if x["jaccard"] >= 1.0)}
+    return {
+        "threshold": threshold,
+        "pairs_found": len(pairs),
+        "pairs": pairs[:limit],
+        "identical": sum(1 for x in pairs if x["jaccard"] >= 1.0),
+    }

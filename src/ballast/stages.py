@@ -80,6 +80,7 @@ class Run:
 
 # ---------------------------------------------------------------- ingest
 
+
 def ingest(run: Run) -> dict[str, Any]:
     from .corpus import ingest as do_ingest
     from .corpus import token_counter
@@ -93,6 +94,7 @@ def ingest(run: Run) -> dict[str, Any]:
 
 
 # ---------------------------------------------------------------- synth
+
 
 def synth(run: Run) -> dict[str, Any]:
     from .synth import import_questions, synthesize
@@ -109,6 +111,7 @@ def synth(run: Run) -> dict[str, Any]:
 
 
 # ---------------------------------------------------------------- split
+
 
 def split(run: Run) -> dict[str, Any]:
     import json
@@ -131,8 +134,10 @@ def split(run: Run) -> dict[str, Any]:
     by_pid = {p["id"]: p for p in passages}
     for q in queries:
         if q["passage_id"] not in by_pid:
-            raise StageError(f"query {q['id']} names passage {q['passage_id']} that is not in "
-                             "passages.jsonl; run `ballast synth` again")
+            raise StageError(
+                f"query {q['id']} names passage {q['passage_id']} that is not in "
+                "passages.jsonl; run `ballast synth` again"
+            )
     q_split = assign_queries(queries, by_pid, doc_split)
     audit = leakage_audit(passages, doc_split, run.cfg.split.leakage_threshold)
     docs = {s: sorted(d for d, x in doc_split.items() if x == s) for s in ("train", "dev", "test")}
@@ -141,14 +146,19 @@ def split(run: Run) -> dict[str, Any]:
         for s, ids in q_split.items():
             if ids:
                 write_text_atomic(tmp / f"{s}.tsv", format_qrels({q: qrels[q] for q in ids}))
-    write_json(run.path("splits.json"), {"seed": run.cfg.seed, "documents": docs,
-                                         "queries": q_split, "leakage": audit})
-    return {"documents": {s: len(v) for s, v in docs.items()},
-            "queries": {s: len(v) for s, v in q_split.items()},
-            "leakage_pairs": audit["pairs_found"]}
+    write_json(
+        run.path("splits.json"),
+        {"seed": run.cfg.seed, "documents": docs, "queries": q_split, "leakage": audit},
+    )
+    return {
+        "documents": {s: len(v) for s, v in docs.items()},
+        "queries": {s: len(v) for s, v in q_split.items()},
+        "leakage_pairs": audit["pairs_found"],
+    }
 
 
 # ---------------------------------------------------------------- mine
+
 
 def training_positive(query: dict, passage: dict) -> str:
     """The positive text a pair trains on: for a masked inverse-cloze query, the passage
@@ -162,9 +172,15 @@ def training_positive(query: dict, passage: dict) -> str:
 def _base_corpus_embeddings(run: Run, model: Any, passages: list[dict]) -> np.ndarray:
     from .encode import encode_cached
 
-    return encode_cached(model, run.base_fp, [p["text"] for p in passages], run.cache(),
-                         batch_size=run.cfg.evaluate.batch_size, label="encoding passages (base)",
-                         progress=run.progress)
+    return encode_cached(
+        model,
+        run.base_fp,
+        [p["text"] for p in passages],
+        run.cache(),
+        batch_size=run.cfg.evaluate.batch_size,
+        label="encoding passages (base)",
+        progress=run.progress,
+    )
 
 
 def mine(run: Run) -> dict[str, Any]:
@@ -186,11 +202,21 @@ def mine(run: Run) -> dict[str, Any]:
     tp = [passages[i] for i in tidx]
     t_emb = all_emb[tidx]
     pos_of = {p["id"]: j for j, p in enumerate(tp)}
-    q_emb = encode(model, [q["text"] for q in qs], batch_size=run.cfg.evaluate.batch_size,
-                   label="encoding training queries", progress=run.progress)
+    q_emb = encode(
+        model,
+        [q["text"] for q in qs],
+        batch_size=run.cfg.evaluate.batch_size,
+        label="encoding training queries",
+        progress=run.progress,
+    )
     pos_texts = [training_positive(q, by_pid[q["passage_id"]]) for q in qs]
-    pos_emb = encode(model, pos_texts, batch_size=run.cfg.evaluate.batch_size,
-                     label="encoding training positives", progress=run.progress)
+    pos_emb = encode(
+        model,
+        pos_texts,
+        batch_size=run.cfg.evaluate.batch_size,
+        label="encoding training positives",
+        progress=run.progress,
+    )
     pos_scores = np.einsum("ij,ij->i", q_emb, pos_emb)
     rows, counts = [], {"kept": 0}
     rng = run.rng("mine")
@@ -199,29 +225,57 @@ def mine(run: Run) -> dict[str, Any]:
         doc_of = [p["doc_id"] for p in tp]
         text_key = [collapse(p["text"]).lower() for p in tp]
         for qi, q in enumerate(qs):
-            chosen, dropped = mine_one(idx[qi], sc[qi], pos_of[q["passage_id"]],
-                                       float(pos_scores[qi]), doc_of=doc_of, text_key=text_key,
-                                       cfg=cfg, rng=rng)
+            chosen, dropped = mine_one(
+                idx[qi],
+                sc[qi],
+                pos_of[q["passage_id"]],
+                float(pos_scores[qi]),
+                doc_of=doc_of,
+                text_key=text_key,
+                cfg=cfg,
+                rng=rng,
+            )
             counts["kept"] += len(chosen)
             for d in dropped:
                 counts[d["rule"]] = counts.get(d["rule"], 0) + 1
-            rec = lambda c: {"id": tp[c["index"]]["id"], "score": round(c["score"], 6),  # noqa: E731
-                             "rank": c["rank"]}
-            rows.append({"query_id": q["id"], "positive_id": q["passage_id"],
-                         "positive_score": round(float(pos_scores[qi]), 6),
-                         "negatives": [rec(c) for c in chosen],
-                         "dropped": [rec(d) | {"rule": d["rule"]} for d in dropped]})
+            def rec(c):
+                return {
+                            "id": tp[c["index"]]["id"],
+                            "score": round(c["score"], 6),  # noqa: E731
+                            "rank": c["rank"],
+                        }
+            rows.append(
+                {
+                    "query_id": q["id"],
+                    "positive_id": q["passage_id"],
+                    "positive_score": round(float(pos_scores[qi]), 6),
+                    "negatives": [rec(c) for c in chosen],
+                    "dropped": [rec(d) | {"rule": d["rule"]} for d in dropped],
+                }
+            )
     else:
-        rows = [{"query_id": q["id"], "positive_id": q["passage_id"],
-                 "positive_score": round(float(pos_scores[i]), 6), "negatives": [],
-                 "dropped": []} for i, q in enumerate(qs)]
+        rows = [
+            {
+                "query_id": q["id"],
+                "positive_id": q["passage_id"],
+                "positive_score": round(float(pos_scores[i]), 6),
+                "negatives": [],
+                "dropped": [],
+            }
+            for i, q in enumerate(qs)
+        ]
     write_jsonl(run.path("negatives.jsonl"), rows)
     short = sum(1 for r in rows if len(r["negatives"]) < cfg.negatives)
-    return {"queries": len(rows), "negatives": counts.pop("kept"), "dropped_by_rule": counts,
-            "queries_short_of_negatives": short}
+    return {
+        "queries": len(rows),
+        "negatives": counts.pop("kept"),
+        "dropped_by_rule": counts,
+        "queries_short_of_negatives": short,
+    }
 
 
 # ---------------------------------------------------------------- train
+
 
 def train(run: Run) -> dict[str, Any]:
     from .train import train_model
@@ -229,8 +283,10 @@ def train(run: Run) -> dict[str, Any]:
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     by_pid = {p["id"]: p for p in passages}
     by_qid = {q["id"]: q for q in queries}
-    negs = {r["query_id"]: r for _, r in read_jsonl(run.need("negatives.jsonl", "mine"),
-                                                     allow_empty=True)}
+    negs = {
+        r["query_id"]: r
+        for _, r in read_jsonl(run.need("negatives.jsonl", "mine"), allow_empty=True)
+    }
     train_pool = [p for p in passages if p["doc_id"] in set(splits["documents"]["train"])]
     rng = run.rng("train")
     want = run.cfg.mine.negatives
@@ -244,22 +300,39 @@ def train(run: Run) -> dict[str, Any]:
             if cand["doc_id"] != pos["doc_id"] and cand["text"] not in neg:
                 neg.append(cand["text"])
                 padded += 1
-        examples.append({"anchor": q["text"], "positive": training_positive(q, pos),
-                         "negatives": neg})
+        examples.append(
+            {"anchor": q["text"], "positive": training_positive(q, pos), "negatives": neg}
+        )
     if len(examples) < 2:
-        raise StageError(f"{len(examples)} training pair(s); need at least 2 — add documents "
-                         "or lower split.test_fraction")
-    run.progress.info(f"train: {len(examples)} pairs, {want} hard negative(s) each, "
-                      f"{run.cfg.train.epochs} epoch(s)")
+        raise StageError(
+            f"{len(examples)} training pair(s); need at least 2 — add documents "
+            "or lower split.test_fraction"
+        )
+    run.progress.info(
+        f"train: {len(examples)} pairs, {want} hard negative(s) each, "
+        f"{run.cfg.train.epochs} epoch(s)"
+    )
     work = run.path(".train-work")
     with atomic_dir(run.path("model")) as tmp:
-        stats = train_model(run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
-                            out_dir=tmp, work_dir=work, progress=run.progress)
-        write_json(tmp / "ballast_train.json", {"train": run.cfg.to_dict()["train"],
-                                                "seed": run.cfg.seed,
-                                                "base_model": run.cfg.base_model,
-                                                "base_fingerprint": run.base_fp,
-                                                "ballast": __version__})
+        stats = train_model(
+            run.base_path,
+            examples,
+            run.cfg.train,
+            seed=run.cfg.seed,
+            out_dir=tmp,
+            work_dir=work,
+            progress=run.progress,
+        )
+        write_json(
+            tmp / "ballast_train.json",
+            {
+                "train": run.cfg.to_dict()["train"],
+                "seed": run.cfg.seed,
+                "base_model": run.cfg.base_model,
+                "base_fingerprint": run.base_fp,
+                "ballast": __version__,
+            },
+        )
     import shutil
 
     shutil.rmtree(work, ignore_errors=True)
@@ -269,6 +342,7 @@ def train(run: Run) -> dict[str, Any]:
 
 
 # ---------------------------------------------------------------- evaluate
+
 
 def evaluate(run: Run) -> dict[str, Any]:
     from .encode import encode_cached
@@ -281,8 +355,10 @@ def evaluate(run: Run) -> dict[str, Any]:
     by_qid = {q["id"]: q for q in queries}
     pids = [p["id"] for p in passages]
     tuned_path = run.need("model", "train")
-    models = {"base": (run.base_path, run.base_fp),
-              "tuned": (tuned_path, model_fingerprint(tuned_path))}
+    models = {
+        "base": (run.base_path, run.base_fp),
+        "tuned": (tuned_path, model_fingerprint(tuned_path)),
+    }
     metrics = list(cfg.metrics)
     k = depth(metrics)
     qrels_all = qrels_for(queries)
@@ -292,35 +368,59 @@ def evaluate(run: Run) -> dict[str, Any]:
     skipped = [s for s in cfg.splits if s not in active]
     for name, (path, fp) in models.items():
         model = load_encoder(path, max_seq_length=run.cfg.train.max_seq_length)
-        p_emb = encode_cached(model, fp, [p["text"] for p in passages], run.cache(),
-                              batch_size=cfg.batch_size, label=f"encoding passages ({name})",
-                              progress=run.progress)
+        p_emb = encode_cached(
+            model,
+            fp,
+            [p["text"] for p in passages],
+            run.cache(),
+            batch_size=cfg.batch_size,
+            label=f"encoding passages ({name})",
+            progress=run.progress,
+        )
         for s in active:
             qids = splits["queries"][s]
-            q_emb = encode_cached(model, fp, [by_qid[q]["text"] for q in qids], run.cache(),
-                                  batch_size=cfg.batch_size, label=f"encoding {s} queries ({name})",
-                                  progress=run.progress)
+            q_emb = encode_cached(
+                model,
+                fp,
+                [by_qid[q]["text"] for q in qids],
+                run.cache(),
+                batch_size=cfg.batch_size,
+                label=f"encoding {s} queries ({name})",
+                progress=run.progress,
+            )
             ranked, scores = rank(q_emb, p_emb, pids, k)
-            per_query.setdefault(s, {})[name] = score(ranked, [qrels_all[q] for q in qids],
-                                                      metrics)
+            per_query.setdefault(s, {})[name] = score(ranked, [qrels_all[q] for q in qids], metrics)
             run_files[f"{name}/{s}.run"] = format_run(qids, ranked, scores, f"ballast-{name}")
         del model
-    summary: dict[str, Any] = {"metrics": metrics, "confidence": cfg.confidence,
-                               "bootstrap_resamples": cfg.bootstrap_resamples,
-                               "seed": run.cfg.seed, "baseline": "base",
-                               "models": {n: {"fingerprint": fp} for n, (_, fp) in models.items()},
-                               "splits": {}, "skipped_splits": skipped}
+    summary: dict[str, Any] = {
+        "metrics": metrics,
+        "confidence": cfg.confidence,
+        "bootstrap_resamples": cfg.bootstrap_resamples,
+        "seed": run.cfg.seed,
+        "baseline": "base",
+        "models": {n: {"fingerprint": fp} for n, (_, fp) in models.items()},
+        "splits": {},
+        "skipped_splits": skipped,
+    }
     rows = []
     for j, s in enumerate(active):
         qids = splits["queries"][s]
         origins = [by_qid[q]["origin"] for q in qids]
         summary["splits"][s] = summarise_split(
-            per_query[s], origins, metrics, baseline="base", seed=run.cfg.seed * 1000 + j,
-            resamples=cfg.bootstrap_resamples, confidence=cfg.confidence)
+            per_query[s],
+            origins,
+            metrics,
+            baseline="base",
+            seed=run.cfg.seed * 1000 + j,
+            resamples=cfg.bootstrap_resamples,
+            confidence=cfg.confidence,
+        )
         for name in models:
             for i, q in enumerate(qids):
-                rows.append([s, q, origins[i], name] +
-                            [repr(round(float(per_query[s][name][m][i]), 10)) for m in metrics])
+                rows.append(
+                    [s, q, origins[i], name]
+                    + [repr(round(float(per_query[s][name][m][i]), 10)) for m in metrics]
+                )
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["split", "query_id", "origin", "model", *metrics])
@@ -331,11 +431,14 @@ def evaluate(run: Run) -> dict[str, Any]:
             write_text_atomic(tmp / rel, text)
     write_text_atomic(run.path("per_query.csv"), buf.getvalue())
     write_json(run.path("metrics.json"), summary)
-    return {"splits": {s: summary["splits"][s]["n_queries"] for s in active},
-            "skipped_splits": skipped}
+    return {
+        "splits": {s: summary["splits"][s]["n_queries"] for s in active},
+        "skipped_splits": skipped,
+    }
 
 
 # ---------------------------------------------------------------- gate
+
 
 def gate(run: Run) -> dict[str, Any]:
     import json
@@ -350,6 +453,7 @@ def gate(run: Run) -> dict[str, Any]:
 
 # ---------------------------------------------------------------- export
 
+
 def export(run: Run) -> dict[str, Any]:
     import json
 
@@ -361,8 +465,10 @@ def export(run: Run) -> dict[str, Any]:
     verdict = json.loads(run.need("gate.json", "gate").read_text("utf-8"))
     metrics = json.loads(run.need("metrics.json", "evaluate").read_text("utf-8"))
     if not verdict["passed"] and not run.force_export:
-        raise GateFailed(f"export refused: {verdict['summary']}. Use --force to export anyway "
-                         "(the manifest will say so)")
+        raise GateFailed(
+            f"export refused: {verdict['summary']}. Use --force to export anyway "
+            "(the manifest will say so)"
+        )
     tuned_hash = weights_hash(model_dir)
     version = run.cfg.export.version or "v-" + next(iter(tuned_hash.values()))[:12]
     name = safe_name(f"{run.cfg.name}-{version}")
@@ -373,37 +479,64 @@ def export(run: Run) -> dict[str, Any]:
     gated = {}
     for s, info in metrics["splits"].items():
         comp = info["comparisons"].get("tuned_vs_base", {})
-        gated[s] = {m: {"base": info["models"]["base"][m]["mean"],
-                        "tuned": info["models"]["tuned"][m]["mean"],
-                        "diff": comp.get(m, {}).get("mean_diff"),
-                        "ci": [comp.get(m, {}).get("ci_low"), comp.get(m, {}).get("ci_high")],
-                        "p_value": comp.get(m, {}).get("p_value")}
-                    for m in metrics["metrics"]} | {"n_queries": info["n_queries"]}
-    train_stats = json.loads(run.path("train.json").read_text("utf-8")) \
-        if run.path("train.json").is_file() else {}
-    data = {n: sha256_file(run.path(n)) for n in ("passages.jsonl", "queries.jsonl",
-                                                   "splits.json", "negatives.jsonl")}
+        gated[s] = {
+            m: {
+                "base": info["models"]["base"][m]["mean"],
+                "tuned": info["models"]["tuned"][m]["mean"],
+                "diff": comp.get(m, {}).get("mean_diff"),
+                "ci": [comp.get(m, {}).get("ci_low"), comp.get(m, {}).get("ci_high")],
+                "p_value": comp.get(m, {}).get("p_value"),
+            }
+            for m in metrics["metrics"]
+        } | {"n_queries": info["n_queries"]}
+    train_stats = (
+        json.loads(run.path("train.json").read_text("utf-8"))
+        if run.path("train.json").is_file()
+        else {}
+    )
+    data = {
+        n: sha256_file(run.path(n))
+        for n in ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl")
+    }
     cfg = run.cfg.to_dict()
     manifest = {
         "schema_version": SCHEMA_VERSION,
         "name": run.cfg.name,
         "version": version,
-        "model": {"path": ".", "format": "sentence-transformers", **model_facts(model_dir),
-                  "weights_sha256": tuned_hash},
-        "base_model": {"id": run.cfg.base_model, "fingerprint": run.base_fp,
-                       "weights_sha256": weights_hash(run.base_path)},
-        "training": {"config": cfg["train"], "mining": cfg["mine"], "synthesis": cfg["synth"],
-                     "seed": run.cfg.seed,
-                     **{k: train_stats.get(k) for k in ("pairs", "steps", "seconds",
-                                                        "hard_negatives_per_pair")}},
+        "model": {
+            "path": ".",
+            "format": "sentence-transformers",
+            **model_facts(model_dir),
+            "weights_sha256": tuned_hash,
+        },
+        "base_model": {
+            "id": run.cfg.base_model,
+            "fingerprint": run.base_fp,
+            "weights_sha256": weights_hash(run.base_path),
+        },
+        "training": {
+            "config": cfg["train"],
+            "mining": cfg["mine"],
+            "synthesis": cfg["synth"],
+            "seed": run.cfg.seed,
+            **{
+                k: train_stats.get(k)
+                for k in ("pairs", "steps", "seconds", "hard_negatives_per_pair")
+            },
+        },
         "data_sha256": data,
         "metrics": gated,
-        "gate": {"passed": verdict["passed"], "summary": verdict["summary"],
-                 "primary_metric": verdict["primary_metric"], "min_gain": verdict["min_gain"],
-                 "splits": [{k: s.get(k) for k in ("split", "passed", "gain", "ci_low",
-                                                     "ci_high", "reason")}
-                            for s in verdict["splits"]],
-                 "forced": bool(run.force_export and not verdict["passed"])},
+        "gate": {
+            "passed": verdict["passed"],
+            "summary": verdict["summary"],
+            "primary_metric": verdict["primary_metric"],
+            "min_gain": verdict["min_gain"],
+            "splits": [
+                {k: s.get(k) for k in ("split", "passed", "gain", "ci_low", "ci_high", "reason")}
+                for s in verdict["splits"]
+            ],
+            "forced": bool(run.force_export and not verdict["passed"]),
+        },
         "libraries": library_versions(),
     }
     with atomic_dir(target) as tmp:
@@ -412,8 +545,16 @@ def export(run: Run) -> dict[str, Any]:
     return {"bundle": str(target), "version": version, "forced": manifest["gate"]["forced"]}
 
 
-STAGE_FUNCS = {"ingest": ingest, "synth": synth, "split": split, "mine": mine, "train": train,
-               "evaluate": evaluate, "gate": gate, "export": export}
+STAGE_FUNCS = {
+    "ingest": ingest,
+    "synth": synth,
+    "split": split,
+    "mine": mine,
+    "train": train,
+    "evaluate": evaluate,
+    "gate": gate,
+    "export": export,
+}
 
 
 def timed(fn, run: Run) -> tuple[dict[str, Any], float]:  # noqa: ANN001

@@ -21,8 +21,13 @@ def _callback(progress: Progress, history: list[dict]) -> Any:
     class Report(TrainerCallback):
         def on_log(self, args, state, control, logs=None, **kw):  # noqa: ANN001
             if logs and "loss" in logs:
-                history.append({"step": state.global_step, "epoch": round(state.epoch or 0, 4),
-                                "loss": round(float(logs["loss"]), 6)})
+                history.append(
+                    {
+                        "step": state.global_step,
+                        "epoch": round(state.epoch or 0, 4),
+                        "loss": round(float(logs["loss"]), 6),
+                    }
+                )
 
         def on_step_end(self, args, state, control, **kw):  # noqa: ANN001
             progress.step("training", state.global_step, state.max_steps)
@@ -30,8 +35,16 @@ def _callback(progress: Progress, history: list[dict]) -> Any:
     return Report()
 
 
-def train_model(base: Path, examples: list[dict], cfg: TrainConfig, *, seed: int,
-                out_dir: Path, work_dir: Path, progress: Progress = SILENT) -> dict[str, Any]:
+def train_model(
+    base: Path,
+    examples: list[dict],
+    cfg: TrainConfig,
+    *,
+    seed: int,
+    out_dir: Path,
+    work_dir: Path,
+    progress: Progress = SILENT,
+) -> dict[str, Any]:
     """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``."""
     import torch
     from datasets import Dataset
@@ -46,8 +59,10 @@ def train_model(base: Path, examples: list[dict], cfg: TrainConfig, *, seed: int
     torch.manual_seed(seed)
     model = load_encoder(base, max_seq_length=cfg.max_seq_length)
     n_neg = min((len(e["negatives"]) for e in examples), default=0)
-    columns: dict[str, list[str]] = {"anchor": [e["anchor"] for e in examples],
-                                     "positive": [e["positive"] for e in examples]}
+    columns: dict[str, list[str]] = {
+        "anchor": [e["anchor"] for e in examples],
+        "positive": [e["positive"] for e in examples],
+    }
     for j in range(n_neg):
         columns[f"negative_{j + 1}"] = [e["negatives"][j] for e in examples]
     dataset = Dataset.from_dict(columns)
@@ -72,8 +87,19 @@ def train_model(base: Path, examples: list[dict], cfg: TrainConfig, *, seed: int
     )
     history: list[dict] = []
     loss = MultipleNegativesRankingLoss(model)
-    trainer = SentenceTransformerTrainer(model=model, args=args, train_dataset=dataset, loss=loss,
-                                         callbacks=[_callback(progress, history)])
+    trainer = SentenceTransformerTrainer(
+        model=model,
+        args=args,
+        train_dataset=dataset,
+        loss=loss,
+        callbacks=[_callback(progress, history)],
+    )
+    from transformers.trainer_callback import PrinterCallback
+
+    trainer.remove_callback(PrinterCallback)  # ballast reports progress itself
+    for cb in list(trainer.callback_handler.callbacks):
+        if type(cb).__name__.endswith("ModelCardCallback"):
+            trainer.remove_callback(cb)  # no model card: it would embed dates and examples
     started = time.perf_counter()
     resume = None
     if cfg.checkpoint_steps:

@@ -13,19 +13,26 @@ from ..errors import BallastError
 from .output import StderrProgress, emit_json, gate_text, metrics_table, stage_line
 
 app = typer.Typer(
-    add_completion=False, no_args_is_help=True, rich_markup_mode=None,
+    add_completion=False,
+    no_args_is_help=True,
+    rich_markup_mode=None,
     help="Adapt a sentence-embedding model to your documents on a CPU, and prove the gain "
-         "on every evaluation split before it ships.\n\n"
-         "Exit codes: 0 ok, 1 the release gate failed, 2 bad input, usage or config.",
+    "on every evaluation split before it ships.\n\n"
+    "Exit codes: 0 ok, 1 the release gate failed, 2 bad input, usage or config.",
 )
 
 Target = Annotated[Path, typer.Argument(help="A config file (.toml) or a run folder.")]
-Sets = Annotated[list[str] | None, typer.Option("--set", "-s", metavar="KEY=VALUE",
-                                                 help="Override a config key, e.g. train.epochs=2.")]
+Sets = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--set", "-s", metavar="KEY=VALUE", help="Override a config key, e.g. train.epochs=2."
+    ),
+]
 Json = Annotated[bool, typer.Option("--json", help="Print one JSON document on stdout.")]
 Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="No progress on stderr.")]
-Force = Annotated[bool, typer.Option("--force", help="Export even if the gate failed "
-                                                    "(recorded in the manifest).")]
+Force = Annotated[
+    bool, typer.Option("--force", help="Export even if the gate failed (recorded in the manifest).")
+]
 
 SHOWN = ["ndcg@10", "mrr@10", "recall@10"]
 
@@ -47,8 +54,14 @@ def _load(target: Path, sets: list[str] | None) -> Any:
     return load_config(target, sets or [])
 
 
-def _stage(stage: str, target: Path, sets: list[str] | None, as_json: bool, quiet: bool,
-           force: bool = False) -> None:
+def _stage(
+    stage: str,
+    target: Path,
+    sets: list[str] | None,
+    as_json: bool,
+    quiet: bool,
+    force: bool = False,
+) -> None:
     from ..pipeline import run_stage
     from ..stages import Run
 
@@ -76,13 +89,22 @@ def _read(p: Path) -> Any:
 
 def _make_stage_command(stage: str, doc: str) -> None:
     if stage == "export":
-        def command(target: Target, set_: Sets = None, as_json: Json = False,
-                    quiet: Quiet = False, force: Force = False) -> None:
+
+        def command(
+            target: Target,
+            set_: Sets = None,
+            as_json: Json = False,
+            quiet: Quiet = False,
+            force: Force = False,
+        ) -> None:
             _stage(stage, target, set_, as_json, quiet, force)
     else:
-        def command(target: Target, set_: Sets = None, as_json: Json = False,
-                    quiet: Quiet = False) -> None:
+
+        def command(
+            target: Target, set_: Sets = None, as_json: Json = False, quiet: Quiet = False
+        ) -> None:
             _stage(stage, target, set_, as_json, quiet)
+
     command.__doc__ = doc
     app.command(stage)(command)
 
@@ -107,16 +129,20 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
     progress = StderrProgress(quiet or as_json)
     run = Run(cfg, progress, force_export=force)
     try:
-        results = []
-        for r in _iter_run(run, run_all):
-            results.append(r)
+        results = run_all(run)
     except BallastError as exc:
         _fail(exc)
     verdict = _read(run.path("gate.json"))
     exported = next((r for r in results if r["stage"] == "export" and not r["skipped"]), None)
     if as_json:
-        emit_json({"stages": results, "metrics": _read(run.path("metrics.json")),
-                   "gate": verdict, "bundle": exported["summary"]["bundle"] if exported else None})
+        emit_json(
+            {
+                "stages": results,
+                "metrics": _read(run.path("metrics.json")),
+                "gate": verdict,
+                "bundle": exported["summary"]["bundle"] if exported else None,
+            }
+        )
     else:
         for r in results:
             typer.echo(stage_line(r))
@@ -127,20 +153,22 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
         if exported:
             typer.echo(f"bundle: {exported['summary']['bundle']}")
         else:
-            typer.echo("bundle: not exported (the gate failed; `ballast export --force` "
-                       "overrides, and the manifest records it)")
+            typer.echo(
+                "bundle: not exported (the gate failed; `ballast export --force` "
+                "overrides, and the manifest records it)"
+            )
     if not verdict["passed"]:
         raise typer.Exit(1)
 
 
-def _iter_run(run: Any, run_all: Any) -> list[dict]:
-    return run_all(run)
-
-
 @app.command("run")
-def run_command(config: Annotated[Path, typer.Argument(help="A config file (.toml).")],
-                set_: Sets = None, as_json: Json = False, quiet: Quiet = False,
-                force: Force = False) -> None:
+def run_command(
+    config: Annotated[Path, typer.Argument(help="A config file (.toml).")],
+    set_: Sets = None,
+    as_json: Json = False,
+    quiet: Quiet = False,
+    force: Force = False,
+) -> None:
     """Run every stage in order, skipping those whose inputs and settings are unchanged."""
     try:
         cfg = _load(config, set_)
@@ -164,8 +192,10 @@ def demo_command(set_: Sets = None, as_json: Json = False, quiet: Quiet = False)
     except BallastError as exc:
         _fail(exc)
     if not quiet and not as_json:
-        sys.stderr.write("ballast demo: the invented Kestrel Hollow Cider Works handbook "
-                         "(fiction, not operational or food-safety guidance)\n")
+        sys.stderr.write(
+            "ballast demo: the invented Kestrel Hollow Cider Works handbook "
+            "(fiction, not operational or food-safety guidance)\n"
+        )
     _run(cfg, as_json, quiet, False)
 
 
@@ -181,8 +211,10 @@ def init_command(folder: Annotated[Path, typer.Argument(help="Folder for a new p
         raise typer.Exit(2)
     (folder / "docs").mkdir(parents=True, exist_ok=True)
     write_text_atomic(cfg, TEMPLATE.replace("{name}", _slug(folder.resolve().name)))
-    typer.echo(f"wrote {cfg} and {folder / 'docs'}/; put your documents there, then run "
-               f"`ballast run {cfg}`")
+    typer.echo(
+        f"wrote {cfg} and {folder / 'docs'}/; put your documents there, then run "
+        f"`ballast run {cfg}`"
+    )
 
 
 def _slug(name: str) -> str:

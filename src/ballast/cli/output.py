@@ -48,13 +48,22 @@ def emit_json(obj: Any) -> None:
 
 def _fmt_summary(summary: Any) -> str:
     if isinstance(summary, dict):
-        return ", ".join(f"{k}={_fmt_summary(v)}" for k, v in summary.items()
-                         if not isinstance(v, (list,)) or len(v) < 8)
+        return ", ".join(
+            f"{k}={_fmt_summary(v)}"
+            for k, v in summary.items()
+            if not isinstance(v, (list,)) or len(v) < 8
+        )
     return str(summary)
 
 
 def stage_line(result: dict[str, Any]) -> str:
-    state = "skipped (unchanged)" if result.get("skipped") else f"done in {result['seconds']:.1f}s"
+    if result.get("skipped"):
+        refused = "refused" in result["summary"]
+        state = "not run (gate failed)" if refused else "skipped (unchanged)"
+        if refused:
+            return f"{result['stage']:<9} {state}"
+    else:
+        state = f"done in {result['seconds']:.1f}s"
     return f"{result['stage']:<9} {state}: {_fmt_summary(result['summary'])}"
 
 
@@ -63,8 +72,10 @@ def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
     for split, info in metrics["splits"].items():
         comp = info["comparisons"].get("tuned_vs_base", {})
         lines.append(f"split {split} ({info['n_queries']} queries)")
-        lines.append(f"  {'metric':<12} {'base':>7} {'tuned':>7} {'diff':>8}  "
-                     f"{round(100 * metrics['confidence'])}% interval of diff   p")
+        lines.append(
+            f"  {'metric':<12} {'base':>7} {'tuned':>7} {'diff':>8}  "
+            f"{round(100 * metrics['confidence'])}% interval of diff   p"
+        )
         for m in shown:
             if m not in info["models"].get("base", {}):
                 continue

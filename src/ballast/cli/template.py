@@ -1,6 +1,6 @@
 """The commented config template that `ballast init` writes (also configs/template.toml)."""
 
-TEMPLATE = '''\
+TEMPLATE = """\
 # ballast configuration. Paths are relative to this file.
 # Every key is optional; the values shown are the defaults.
 
@@ -65,4 +65,4 @@ min_gain = 0.0             # required mean gain; the interval must also lie abov
 [export]
 dir = ""                   # default: <run_dir>/bundle
 version = ""               # default: v-<first 12 hex digits of the tuned weights hash>
-'''
+"""

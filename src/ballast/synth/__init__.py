@@ -1,4 +1,4 @@
-"""Query synthesis: generators that write queries for passages, and the import of human questions."""
+"""Query synthesis: generators that write queries, and the import of human questions."""
 
 from .extractive import ict_queries, keyword_queries, synthesize
 from .human import import_questions

@@ -36,8 +36,15 @@ def ict_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Generator
         picks = rng.permutation(len(usable))[: cfg.ict_per_passage]
         for k, i in enumerate(sorted(int(x) for x in picks)):
             masked = bool(rng.random() < cfg.ict_remove_prob)
-            out.append({"id": query_id("ict", p["id"], k), "text": usable[i],
-                        "passage_id": p["id"], "origin": "ict", "meta": {"masked": masked}})
+            out.append(
+                {
+                    "id": query_id("ict", p["id"], k),
+                    "text": usable[i],
+                    "passage_id": p["id"],
+                    "origin": "ict",
+                    "meta": {"masked": masked},
+                }
+            )
     return out
 
 
@@ -46,8 +53,13 @@ def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
 
     if not passages:
         return []
-    vec = TfidfVectorizer(token_pattern=TOKEN_PATTERN, stop_words="english", sublinear_tf=True,
-                          min_df=1, max_df=0.5 if len(passages) >= 20 else 1.0)
+    vec = TfidfVectorizer(
+        token_pattern=TOKEN_PATTERN,
+        stop_words="english",
+        sublinear_tf=True,
+        min_df=1,
+        max_df=0.5 if len(passages) >= 20 else 1.0,
+    )
     try:
         matrix = vec.fit_transform([p["text"] for p in passages]).tocsr()
     except ValueError:  # every term is a stop word
@@ -62,8 +74,9 @@ def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
             continue
         cand, weight = idx[order], w[order]
         for k in range(cfg.keywords_per_passage):
-            n = int(rng.integers(cfg.keywords_min_terms,
-                                 min(cfg.keywords_max_terms, len(cand)) + 1))
+            n = int(
+                rng.integers(cfg.keywords_min_terms, min(cfg.keywords_max_terms, len(cand)) + 1)
+            )
             chosen = rng.choice(len(cand), size=n, replace=False, p=weight / weight.sum())
             terms = []
             for c in chosen:
@@ -71,16 +84,24 @@ def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
                 m = re.search(rf"(?<![\w-]){re.escape(term)}(?![\w-])", p["text"], re.IGNORECASE)
                 terms.append((m.start() if m else 10**9, m.group(0) if m else term))
             text = " ".join(t for _, t in sorted(terms))
-            out.append({"id": query_id("keywords", p["id"], k), "text": text,
-                        "passage_id": p["id"], "origin": "keywords", "meta": {}})
+            out.append(
+                {
+                    "id": query_id("keywords", p["id"], k),
+                    "text": text,
+                    "passage_id": p["id"],
+                    "origin": "keywords",
+                    "meta": {},
+                }
+            )
     return out
 
 
 GENERATORS = {"ict": ict_queries, "keywords": keyword_queries}
 
 
-def synthesize(passages: list[dict], cfg: SynthConfig,
-               rng: np.random.Generator) -> tuple[list[dict], dict[str, Any]]:
+def synthesize(
+    passages: list[dict], cfg: SynthConfig, rng: np.random.Generator
+) -> tuple[list[dict], dict[str, Any]]:
     """Run each configured generator in turn, with one seeded generator each."""
     queries: list[dict] = []
     stats: dict[str, Any] = {}

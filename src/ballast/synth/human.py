@@ -24,28 +24,51 @@ def import_questions(path: str | Path, passages: list[dict]) -> list[dict]:
         qid = require_str(row, "id", path=path, line=line)
         text = require_str(row, "text", path=path, line=line)
         if qid in seen:
-            raise InputError(f"duplicate question id {qid!r} (first on line {seen[qid]})",
-                             path=path, line=line, field="id")
+            raise InputError(
+                f"duplicate question id {qid!r} (first on line {seen[qid]})",
+                path=path,
+                line=line,
+                field="id",
+            )
         seen[qid] = line
         if "passage_id" in row:
             pid = require_str(row, "passage_id", path=path, line=line)
             if pid not in by_id:
-                raise InputError(f"no passage with id {pid!r} in the corpus",
-                                 path=path, line=line, field="passage_id")
+                raise InputError(
+                    f"no passage with id {pid!r} in the corpus",
+                    path=path,
+                    line=line,
+                    field="passage_id",
+                )
             relevant = [pid]
         else:
             doc = require_str(row, "doc_id", path=path, line=line)
             quote = require_str(row, "quote", path=path, line=line)
             if doc not in by_doc:
-                raise InputError(f"no document {doc!r} among the ingested documents",
-                                 path=path, line=line, field="doc_id")
+                raise InputError(
+                    f"no document {doc!r} among the ingested documents",
+                    path=path,
+                    line=line,
+                    field="doc_id",
+                )
             relevant = locate(quote, by_doc[doc])
             if not relevant:
-                raise InputError(f"quote not found in document {doc!r}; expected words copied "
-                                 "from the passage that answers the question",
-                                 path=path, line=line, field="quote")
-        out.append({"id": qid, "text": collapse(text), "passage_id": relevant[0],
-                    "origin": "human", "meta": {"relevant": relevant}})
+                raise InputError(
+                    f"quote not found in document {doc!r}; expected words copied "
+                    "from the passage that answers the question",
+                    path=path,
+                    line=line,
+                    field="quote",
+                )
+        out.append(
+            {
+                "id": qid,
+                "text": collapse(text),
+                "passage_id": relevant[0],
+                "origin": "human",
+                "meta": {"relevant": relevant},
+            }
+        )
     return out
 
 
@@ -58,7 +81,9 @@ def locate(quote: str, passages: list[dict]) -> list[str]:
     best, best_len = None, 0
     for p in passages:
         t = collapse(p["text"]).lower()
-        m = difflib.SequenceMatcher(None, q, t, autojunk=False).find_longest_match(0, len(q), 0, len(t))
+        m = difflib.SequenceMatcher(None, q, t, autojunk=False).find_longest_match(
+            0, len(q), 0, len(t)
+        )
         if m.size > best_len:
             best, best_len = p["id"], m.size
     return [best] if best is not None and best_len >= 0.6 * len(q) else []

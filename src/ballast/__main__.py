@@ -1,0 +1,3 @@
+from ballast.cli import main
+
+main()

@@ -1,0 +1,122 @@
+"""Bad input and bad config through the CLI: exit 2, a message naming file/line/field or key,
+and nothing already written lost or half-written."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from typer.testing import CliRunner
+
+from ballast.cli import app
+from tests.conftest import write_config
+
+runner = CliRunner()
+
+
+def invoke(*args: str):
+    return runner.invoke(app, list(args), catch_exceptions=False)
+
+
+def test_help_lists_every_stage() -> None:
+    r = invoke("--help")
+    assert r.exit_code == 0
+    for cmd in ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "export",
+                "run", "demo", "init"):
+        assert cmd in r.output
+
+
+def test_unknown_config_key(tmp_path: Path) -> None:
+    cfg = write_config(tmp_path, tmp_path, train="epoch = 2")
+    r = invoke("ingest", str(cfg))
+    assert r.exit_code == 2
+    assert "train.epoch" in r.stderr and "epochs" in r.stderr and str(cfg) in r.stderr
+
+
+def test_bad_config_value_via_set(tmp_path: Path) -> None:
+    cfg = write_config(tmp_path, tmp_path)
+    r = invoke("ingest", str(cfg), "--set", "mine.max_relative=1.5")
+    assert r.exit_code == 2
+    assert "mine.max_relative" in r.stderr and "1.5" in r.stderr
+
+
+def test_missing_config_file(tmp_path: Path) -> None:
+    r = invoke("run", str(tmp_path / "nope.toml"))
+    assert r.exit_code == 2 and "nope.toml" in r.stderr
+
+
+def _ingest_fails(tmp_path: Path, name: str, data: bytes) -> str:
+    docs = tmp_path / "docs"
+    docs.mkdir(exist_ok=True)
+    (docs / "good.md").write_text("# Good\n\nA fine paragraph about the press hall. "
+                                  "It has two sentences.\n", encoding="utf-8")
+    cfg = write_config(tmp_path, docs)
+    assert invoke("ingest", str(cfg), "-q").exit_code == 0
+    before = (tmp_path / "run" / "passages.jsonl").read_bytes()
+    (docs / name).write_bytes(data)
+    r = invoke("ingest", str(cfg), "-q")
+    assert r.exit_code == 2, r.output
+    # the earlier output is intact and no temporary file is left behind
+    assert (tmp_path / "run" / "passages.jsonl").read_bytes() == before
+    assert not [p for p in (tmp_path / "run").iterdir() if p.name.endswith(".tmp")]
+    assert not (tmp_path / "run" / "ingest.done.json").exists()
+    return r.stderr
+
+
+def test_malformed_jsonl_line(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "rows.jsonl", b'{"id": "a", "text": "fine"}\n{"id": "b", "text"\n')
+    assert "rows.jsonl:2" in err and "not valid JSON" in err
+
+
+def test_empty_file(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "empty.jsonl", b"")
+    assert "empty.jsonl" in err and "empty" in err
+
+
+def test_unknown_extension(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "scan.pdf", b"%PDF-1.4")
+    assert "scan.pdf" in err and ".pdf" in err and ".md" in err
+
+
+def test_duplicate_ids(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "rows.jsonl",
+                        b'{"id": "a", "text": "one text"}\n{"id": "a", "text": "two text"}\n')
+    assert "duplicate document id 'a'" in err and "rows.jsonl" in err
+
+
+def test_non_utf8_bytes(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "latin.txt", "line one\nCaf\xe9 au lait\n".encode("latin-1"))
+    assert "latin.txt:2" in err and "UTF-8" in err
+
+
+def test_missing_field(tmp_path: Path) -> None:
+    err = _ingest_fails(tmp_path, "rows.jsonl", b'{"id": "a", "body": "x"}\n')
+    assert "rows.jsonl:1" in err and "field 'text'" in err
+
+
+def test_stage_before_its_inputs(tmp_path: Path) -> None:
+    cfg = write_config(tmp_path, tmp_path)
+    r = invoke("mine", str(cfg))
+    assert r.exit_code == 2 and "passages.jsonl" in r.stderr and "ballast ingest" in r.stderr
+
+
+def test_init_writes_template_and_refuses_to_overwrite(tmp_path: Path) -> None:
+    target = tmp_path / "proj"
+    r = invoke("init", str(target))
+    assert r.exit_code == 0
+    assert (target / "docs").is_dir() and (target / "ballast.toml").is_file()
+    r2 = invoke("init", str(target))
+    assert r2.exit_code == 2 and "already exists" in r2.stderr
+
+
+@pytest.mark.parametrize("bad", ['{"id": "q1", "text": "where?", "doc_id": "nope.md", "quote": "x"}'])
+def test_bad_question_file(tmp_path: Path, bad: str) -> None:
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "a.md").write_text("# A\n\nThe press runs at dawn. It stops at dusk.\n", "utf-8")
+    q = tmp_path / "q.jsonl"
+    q.write_text(bad + "\n", "utf-8")
+    cfg = write_config(tmp_path, docs, q)
+    assert invoke("ingest", str(cfg), "-q").exit_code == 0
+    r = invoke("synth", str(cfg), "-q")
+    assert r.exit_code == 2 and "q.jsonl:1" in r.stderr and "doc_id" in r.stderr
