@@ -80,8 +80,8 @@ class SynthConfig:
 
     def __post_init__(self) -> None:
         for g in self.generators:
-            if g not in ("ict", "keywords"):
-                _fail("synth.generators", g, "a list drawn from 'ict', 'keywords'")
+            if g not in ("ict", "keywords", "headings"):
+                _fail("synth.generators", g, "a list drawn from 'ict', 'keywords', 'headings'")
         _range("synth.ict_per_passage", self.ict_per_passage, 0, 20)
         _range("synth.ict_remove_prob", self.ict_remove_prob, 0.0, 1.0)
         _range("synth.ict_min_words", self.ict_min_words, 1, 100)
@@ -148,7 +148,7 @@ class TrainConfig:
 
 @dataclass(frozen=True)
 class EvaluateConfig:
-    splits: tuple[str, ...] = ("dev", "test", "human")
+    splits: tuple[str, ...] = ("dev", "test")
     metrics: tuple[str, ...] = (
         "ndcg@10",
         "mrr@10",
@@ -177,7 +177,7 @@ class EvaluateConfig:
 
 @dataclass(frozen=True)
 class GateConfig:
-    splits: tuple[str, ...] = ("test", "human")
+    splits: tuple[str, ...] = ("test",)
     primary_metric: str = "ndcg@10"
     min_gain: float = 0.0
 
@@ -230,6 +230,12 @@ class Config:
                     s,
                     f"a split that evaluate.splits lists {list(self.evaluate.splits)}",
                 )
+        if "human" in self.evaluate.splits and not self.synth.questions:
+            _fail(
+                "evaluate.splits",
+                "human",
+                "synth.questions set to a questions file when the 'human' split is evaluated",
+            )
 
     def to_dict(self) -> dict[str, Any]:
         return _to_plain(dataclasses.asdict(self))

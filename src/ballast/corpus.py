@@ -399,7 +399,7 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
                         "doc_id": d.doc_id,
                         "text": text,
                         "title": title,
-                        "meta": {"index": index, "tokens": ntok},
+                        "meta": {"index": index, "tokens": ntok, "section": heading},
                     }
                 )
                 index += 1

@@ -38,7 +38,7 @@ def encode(
             out.append(np.asarray(emb, dtype=np.float32))
             progress.step(label, min(start + batch_size, len(texts)), len(texts))
     if not out:
-        dim = model.get_sentence_embedding_dimension()
+        dim = model.get_embedding_dimension()
         return np.zeros((0, dim), dtype=np.float32)
     return np.concatenate(out)
 

@@ -45,40 +45,24 @@ def safe_name(name: str) -> str:
 
 
 def model_facts(model_dir: Path) -> dict[str, Any]:
-    """Dimension, similarity, normalisation and length as the model folder declares them."""
+    """Dimension, similarity, pooling, normalisation and length, as the loaded model says."""
+    from .models import load_encoder
+
+    model = load_encoder(model_dir)
     modules = json.loads((model_dir / "modules.json").read_text("utf-8"))
-    types = [m.get("type", "") for m in modules]
-    normalised = any(t.endswith("Normalize") for t in types)
-    dim = None
     pooling = None
     for m in modules:
         if m.get("type", "").endswith("Pooling"):
             cfg = json.loads((model_dir / m["path"] / "config.json").read_text("utf-8"))
-            dim = cfg.get("word_embedding_dimension")
-            pooling = next(
-                (
-                    k.removeprefix("pooling_mode_").removesuffix("_tokens")
-                    for k, v in cfg.items()
-                    if k.startswith("pooling_mode") and v
-                ),
-                None,
-            )
-    st_cfg = (
-        json.loads((model_dir / "config_sentence_transformers.json").read_text("utf-8"))
-        if (model_dir / "config_sentence_transformers.json").is_file()
-        else {}
-    )
-    sb = (
-        json.loads((model_dir / "sentence_bert_config.json").read_text("utf-8"))
-        if (model_dir / "sentence_bert_config.json").is_file()
-        else {}
-    )
+            pooling = cfg.get("pooling_mode") or next(
+                (k.removeprefix("pooling_mode_").removesuffix("_tokens")
+                 for k, v in cfg.items() if k.startswith("pooling_mode_") and v), None)
     return {
-        "dimension": dim,
+        "dimension": int(model.get_embedding_dimension()),
         "pooling": pooling,
-        "normalized": normalised,
-        "similarity": st_cfg.get("similarity_fn_name") or "cosine",
-        "max_seq_length": sb.get("max_seq_length"),
+        "normalized": any(m.get("type", "").endswith("Normalize") for m in modules),
+        "similarity": str(model.similarity_fn_name or "cosine"),
+        "max_seq_length": int(model.max_seq_length),
     }
 
 

@@ -22,6 +22,7 @@ def mine_one(
     text_key: list[str],
     cfg: MineConfig,
     rng: np.random.Generator,
+    also_relevant: frozenset[int] = frozenset(),
 ) -> tuple[list[dict], list[dict]]:
     """Negatives and dropped candidates for one query, as (index, score, rank) records."""
     ceiling = cfg.max_relative * positive_score
@@ -30,7 +31,7 @@ def mine_one(
         if rank >= cfg.window_end:
             break
         rule = None
-        if i == positive:
+        if i == positive or i in also_relevant:
             rule = "positive"
         elif text_key[i] == text_key[positive]:
             rule = "same_text"

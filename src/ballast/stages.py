@@ -225,6 +225,9 @@ def mine(run: Run) -> dict[str, Any]:
         doc_of = [p["doc_id"] for p in tp]
         text_key = [collapse(p["text"]).lower() for p in tp]
         for qi, q in enumerate(qs):
+            judged = frozenset(
+                pos_of[r] for r in q.get("meta", {}).get("relevant", ()) if r in pos_of
+            )
             chosen, dropped = mine_one(
                 idx[qi],
                 sc[qi],
@@ -234,6 +237,7 @@ def mine(run: Run) -> dict[str, Any]:
                 text_key=text_key,
                 cfg=cfg,
                 rng=rng,
+                also_relevant=judged,
             )
             counts["kept"] += len(chosen)
             for d in dropped:

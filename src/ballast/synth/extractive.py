@@ -96,7 +96,30 @@ def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
     return out
 
 
-GENERATORS = {"ict": ict_queries, "keywords": keyword_queries}
+def heading_queries(passages: list[dict], cfg: SynthConfig,
+                    rng: np.random.Generator) -> list[dict]:
+    """The section heading, prefixed by the document title, as one query per section
+    (title-as-query pairs): people write headings to say what a section answers, so they
+    read like a search. Every passage of the section is judged relevant; the training
+    positive is one of them, drawn with ``rng``. One query a section, so no query text is
+    counted twice in an evaluation."""
+    sections: dict[tuple[str, str], list[dict]] = {}
+    for p in passages:
+        heading = (p.get("meta") or {}).get("section") or ""
+        if len(heading.split()) >= 2:
+            sections.setdefault((p["doc_id"], heading), []).append(p)
+    out = []
+    for (_, heading), members in sorted(sections.items()):
+        title = members[0].get("title", "").split(" — ")[0]
+        text = f"{title}: {heading}" if title and title != heading else heading
+        ids = [m["id"] for m in members]
+        pos = ids[int(rng.integers(len(ids)))]
+        out.append({"id": query_id("heading", ids[0], 0), "text": text, "passage_id": pos,
+                    "origin": "heading", "meta": {"relevant": ids}})
+    return out
+
+
+GENERATORS = {"ict": ict_queries, "keywords": keyword_queries, "headings": heading_queries}
 
 
 def synthesize(

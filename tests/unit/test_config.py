@@ -1,0 +1,249 @@
+"""ballast.config and the `ballast init` template (common practice: defaults, TOML, --set)."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import tomllib
+from pathlib import Path
+
+import pytest
+
+from ballast import Config, ConfigError, load_config
+from ballast.cli.template import TEMPLATE
+from ballast.config import SECTIONS, build_config, load_run_config
+
+
+def _write(path: Path, text: str | bytes) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if isinstance(text, bytes):
+        path.write_bytes(text)
+    else:
+        path.write_text(text, encoding="utf-8")
+    return path
+
+
+def _error(data: dict, overrides: tuple[str, ...] = ()) -> ConfigError:
+    with pytest.raises(ConfigError) as info:
+        build_config(data, list(overrides))
+    return info.value
+
+
+# ---------------------------------------------------------------- defaults and the template
+
+
+def test_defaults_load() -> None:
+    assert load_config() == Config()
+    assert build_config({}) == Config()
+    cfg = Config()
+    assert cfg.name == "run"
+    assert cfg.run_path == Path("runs/run")
+    assert set(cfg.gate.splits) <= set(cfg.evaluate.splits)
+
+
+def test_to_dict_round_trips_through_build_config() -> None:
+    cfg = Config()
+    plain = json.loads(json.dumps(cfg.to_dict()))  # config.json is written as JSON
+    assert build_config(plain) == cfg
+
+
+@pytest.fixture
+def template_path(tmp_path: Path) -> Path:
+    return _write(tmp_path / "proj" / "ballast.toml", TEMPLATE.replace("{name}", "proj"))
+
+
+def test_template_loads_with_default_values(template_path: Path) -> None:
+    cfg = load_config(template_path)
+    default = Config()
+    assert cfg.name == "proj"
+    assert (cfg.seed, cfg.run_dir, cfg.base_model) == (
+        default.seed,
+        default.run_dir,
+        default.base_model,
+    )
+    for section in SECTIONS:
+        got, want = getattr(cfg, section), getattr(default, section)
+        if section == "ingest":  # the one non-empty relative path is resolved against the file
+            assert got.docs == str(template_path.parent / default.ingest.docs)
+            got = dataclasses.replace(got, docs=default.ingest.docs)
+        assert got == want, section
+
+
+# Keys the template does not show (none: it documents every key).
+UNDOCUMENTED: set[tuple[str, str]] = set()
+
+
+def test_template_lists_every_key_of_every_section() -> None:
+    raw = tomllib.loads(TEMPLATE.replace("{name}", "proj"))
+    for section, cls in SECTIONS.items():
+        want = {f.name for f in dataclasses.fields(cls)} - {
+            k for s, k in UNDOCUMENTED if s == section
+        }
+        assert set(raw[section]) == want, section
+    top = {f.name for f in dataclasses.fields(Config)} - set(SECTIONS)
+    assert top - set(raw) == {"run_dir"}  # run_dir is shown commented out
+    assert "# run_dir" in TEMPLATE
+
+
+def test_template_shows_ingest_extensions() -> None:
+    raw = tomllib.loads(TEMPLATE.replace("{name}", "proj"))
+    assert "extensions" in raw["ingest"]
+
+
+# ---------------------------------------------------------------- errors name the key
+
+
+def test_unknown_key_names_full_key_and_suggests() -> None:
+    err = _error({"train": {"epoch": 2}})
+    assert err.key == "train.epoch"
+    assert "'train.epoch'" in str(err)
+    assert "did you mean 'epochs'" in str(err)
+
+
+def test_unknown_top_level_key_and_section() -> None:
+    assert _error({"nmae": "x"}).key == "nmae"
+    err = _error({"trian": {"epochs": 2}})
+    assert err.key == "trian"
+    assert "'train'" in str(err)
+
+
+@pytest.mark.parametrize(
+    ("data", "key", "allowed"),
+    [
+        ({"train": {"batch_size": 0}}, "train.batch_size", "[2, 4096]"),
+        ({"mine": {"sample": "best"}}, "mine.sample", "'random' or 'top'"),
+        ({"evaluate": {"metrics": ["ndcg@0"]}}, "evaluate.metrics", "ndcg@10"),
+        ({"evaluate": {"metrics": ["bleu@10"]}}, "evaluate.metrics", "recall, precision"),
+        ({"split": {"test_fraction": 0.0}}, "split.test_fraction", "(0.0, 0.9]"),
+        ({"synth": {"generators": ["gpt"]}}, "synth.generators", "'ict', 'keywords'"),
+        ({"gate": {"splits": ["dev"]}}, "gate.splits", "dev is never gated"),
+        ({"train": {"epochs": "two"}}, "train.epochs", "an integer"),
+        ({"train": {"epochs": True}}, "train.epochs", "an integer"),
+        ({"train": 5}, "train", "a table [train]"),
+        ({"ingest": {"overlap_tokens": 61}}, "ingest.overlap_tokens", "[0, 60]"),
+    ],
+)
+def test_bad_value_names_key_and_allowed(data: dict, key: str, allowed: str) -> None:
+    err = _error(data)
+    assert err.key == key
+    assert f"'{key}'" in str(err)
+    assert allowed in str(err)
+
+
+def test_bad_value_message_shows_the_value() -> None:
+    assert "got 'best'" in str(_error({"mine": {"sample": "best"}}))
+    assert "'ndcg@0'" in str(_error({"evaluate": {"metrics": ["ndcg@0"]}}))
+
+
+def test_gate_splits_must_be_evaluated() -> None:
+    err = _error({"evaluate": {"splits": ["dev", "test"]}, "gate": {"splits": ["test", "human"]}})
+    assert err.key == "gate.splits"
+    assert "'human'" in str(err)
+    assert "['dev', 'test']" in str(err)
+    ok = build_config({"evaluate": {"splits": ["test"]}, "gate": {"splits": ["test"]}})
+    assert ok.gate.splits == ("test",)
+
+
+# ---------------------------------------------------------------- --set overrides
+
+
+def test_overrides_parse_toml_values() -> None:
+    cfg = load_config(overrides=["train.epochs=3", "synth.generators=['ict']"])
+    assert cfg.train.epochs == 3
+    assert cfg.synth.generators == ("ict",)
+    assert cfg.train.learning_rate == Config().train.learning_rate  # the rest untouched
+
+
+def test_override_values_that_are_not_toml_are_strings() -> None:
+    cfg = build_config({}, ["name=myrun", "mine.sample=top", "train.learning_rate=1e-4"])
+    assert (cfg.name, cfg.mine.sample, cfg.train.learning_rate) == ("myrun", "top", 1e-4)
+
+
+def test_overrides_apply_over_the_file(tmp_path: Path) -> None:
+    path = _write(tmp_path / "c.toml", "[train]\nepochs = 2\nbatch_size = 8\n")
+    cfg = load_config(path, ["train.epochs=5"])
+    assert (cfg.train.epochs, cfg.train.batch_size) == (5, 8)
+
+
+def test_bad_overrides() -> None:
+    assert "KEY=VALUE" in str(_error({}, ("train.epochs",)))
+    assert _error({}, ("train.epoch=3",)).key == "train.epoch"
+    assert _error({}, ("train.batch_size=1",)).key == "train.batch_size"
+    assert _error({"train": {"epochs": 1}}, ("train.epochs.x=3",)).key == "train.epochs"
+
+
+# ---------------------------------------------------------------- files
+
+
+def test_relative_paths_resolve_against_config_folder(tmp_path: Path) -> None:
+    other = tmp_path / "elsewhere" / "docs"
+    path = _write(
+        tmp_path / "conf" / "c.toml",
+        'run_dir = "../runs/x"\n'
+        'base_model = "models/mini"\n'
+        f'[ingest]\ndocs = "{other.as_posix()}"\n'
+        '[synth]\nquestions = "q.jsonl"\n'
+        '[export]\ndir = "out"\n',
+    )
+    cfg = load_config(path)
+    folder = tmp_path / "conf"
+    assert cfg.run_dir == str(folder / "../runs/x")
+    assert cfg.base_model == str(folder / "models/mini")
+    assert cfg.ingest.docs == str(other)  # absolute: kept
+    assert cfg.synth.questions == str(folder / "q.jsonl")
+    assert cfg.export.dir == str(folder / "out")
+
+
+def test_packaged_model_and_empty_paths_are_not_resolved(tmp_path: Path) -> None:
+    path = _write(tmp_path / "c.toml", 'base_model = "packaged:all-MiniLM-L6-v2"\n')
+    cfg = load_config(path)
+    assert cfg.base_model == "packaged:all-MiniLM-L6-v2"
+    assert (cfg.run_dir, cfg.export.dir) == ("", "")
+
+
+def test_invalid_toml_names_the_file(tmp_path: Path) -> None:
+    path = _write(tmp_path / "bad.toml", "[train\nepochs = 1\n")
+    with pytest.raises(ConfigError) as info:
+        load_config(path)
+    assert info.value.source == str(path)
+    assert str(path) in str(info.value)
+    assert "TOML" in str(info.value)
+
+
+def test_non_utf8_config_names_the_file(tmp_path: Path) -> None:
+    path = _write(tmp_path / "latin1.toml", 'name = "caf\xe9"\n'.encode("latin-1"))
+    with pytest.raises(ConfigError) as info:
+        load_config(path)
+    assert info.value.source == str(path)
+    assert "UTF-8" in str(info.value)
+
+
+def test_missing_config_file(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError) as info:
+        load_config(tmp_path / "nope.toml")
+    assert info.value.source == str(tmp_path / "nope.toml")
+
+
+def test_error_in_a_file_names_file_and_key(tmp_path: Path) -> None:
+    path = _write(tmp_path / "c.toml", "[train]\nepoch = 2\n")
+    with pytest.raises(ConfigError) as info:
+        load_config(path)
+    err = info.value
+    assert (err.source, err.key) == (str(path), "train.epoch")
+    assert str(path) in str(err) and "'train.epoch'" in str(err) and "epochs" in str(err)
+
+
+def test_load_run_config(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError) as info:
+        load_run_config(tmp_path)
+    assert "config.json" in str(info.value)
+    assert info.value.source == str(tmp_path)
+
+    run = tmp_path / "runs" / "x"
+    _write(run / "config.json", json.dumps(Config(name="x", seed=4).to_dict()))
+    cfg = load_run_config(run, ["train.epochs=2"])
+    assert (cfg.name, cfg.seed, cfg.train.epochs, cfg.run_dir) == ("x", 4, 2, str(run))
+
+    _write(run / "config.json", "{not json")
+    with pytest.raises(ConfigError, match="damaged"):
+        load_run_config(run)

@@ -1,0 +1,186 @@
+"""ballast.splits: document-level splits, query assignment, TREC qrels, leakage audit.
+
+Splitting by document, not by query, is common practice for retrieval test collections (no
+passage of a held-out document is trained on). The qrels layout is TREC's, the trade's open
+standard read by trec_eval: ``query_id iteration doc_id relevance``, iteration always 0.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from ballast import InputError
+from ballast.config import SplitConfig
+from ballast.splits import (
+    assign_documents,
+    assign_queries,
+    format_qrels,
+    leakage_audit,
+    qrels_for,
+)
+
+DOCS = [f"doc-{i:03d}" for i in range(40)]
+
+
+# ---------------------------------------------------------------- documents
+
+
+def test_every_document_in_exactly_one_split() -> None:
+    out = assign_documents(DOCS, SplitConfig(), seed=0)
+    assert sorted(out) == DOCS
+    assert set(out.values()) == {"train", "dev", "test"}
+    # targets: test round(40 * 0.2) = 8, dev round(40 * 0.1) = 4, the rest train
+    assert Counter(out.values()) == {"train": 28, "test": 8, "dev": 4}
+
+
+def test_same_seed_same_split_other_seed_differs() -> None:
+    cfg = SplitConfig()
+    first = assign_documents(DOCS, cfg, seed=1)
+    assert first == assign_documents(list(reversed(DOCS)), cfg, seed=1)  # input order is moot
+    assert first != assign_documents(DOCS, cfg, seed=2)
+
+
+def test_adding_documents_keeps_previous_assignments() -> None:
+    cfg = SplitConfig()
+    before = assign_documents(DOCS[:20], cfg, seed=0)
+    after = assign_documents(DOCS, cfg, seed=0, previous=before)
+    assert {d: after[d] for d in before} == before
+    assert sorted(after) == DOCS
+    assert Counter(after.values()) == {"train": 28, "test": 8, "dev": 4}
+
+
+def test_previous_entries_for_removed_documents_are_dropped() -> None:
+    previous = {"gone": "test", DOCS[0]: "dev", DOCS[1]: "bogus"}
+    out = assign_documents(DOCS[:10], SplitConfig(), seed=0, previous=previous)
+    assert "gone" not in out
+    assert out[DOCS[0]] == "dev"
+    assert out[DOCS[1]] in ("train", "dev", "test")
+
+
+def test_too_few_documents() -> None:
+    with pytest.raises(InputError, match="at least 3"):
+        assign_documents(["a", "b"], SplitConfig(), seed=0)
+    with pytest.raises(InputError, match="at least 2"):
+        assign_documents(["a"], SplitConfig(dev_fraction=0.0), seed=0)
+    assert sorted(assign_documents(["a", "b"], SplitConfig(dev_fraction=0.0), seed=0).values()) == [
+        "test",
+        "train",
+    ]
+
+
+@given(
+    n=st.integers(3, 60),
+    test=st.floats(0.05, 0.85),
+    dev=st.floats(0.0, 0.5),
+    seed=st.integers(0, 2**32 - 1),
+)
+@settings(max_examples=200, deadline=None)
+def test_train_never_empty(n: int, test: float, dev: float, seed: int) -> None:
+    if test + dev >= 0.99:
+        dev = 0.0
+    cfg = SplitConfig(test_fraction=test, dev_fraction=dev)
+    counts = Counter(assign_documents([f"d{i}" for i in range(n)], cfg, seed).values())
+    assert counts["train"] >= 1 and counts["test"] >= 1
+    assert (counts["dev"] >= 1) == (dev > 0)
+    assert sum(counts.values()) == n
+
+
+def test_large_held_out_fractions_still_leave_a_train_document() -> None:
+    out = assign_documents(["a", "b", "c"], SplitConfig(test_fraction=0.85, dev_fraction=0.1), 0)
+    assert Counter(out.values()) == {"train": 1, "test": 1, "dev": 1}
+
+
+# ---------------------------------------------------------------- queries and qrels
+
+PASSAGES = {
+    "p1": {"id": "p1", "doc_id": "a"},
+    "p2": {"id": "p2", "doc_id": "b"},
+    "p3": {"id": "p3", "doc_id": "c"},
+}
+DOC_SPLIT = {"a": "train", "b": "test", "c": "dev"}
+
+
+def test_assign_queries() -> None:
+    queries = [
+        {"id": "q3", "passage_id": "p1", "origin": "ict"},
+        {"id": "q1", "passage_id": "p1", "origin": "keywords"},
+        {"id": "q2", "passage_id": "p2", "origin": "ict"},
+        {"id": "q4", "passage_id": "p3", "origin": "ict"},
+        {"id": "h1", "passage_id": "p1", "origin": "human"},  # human, though on a train document
+        {"id": "h0", "passage_id": "p2", "origin": "human"},
+    ]
+    assert assign_queries(queries, PASSAGES, DOC_SPLIT) == {
+        "train": ["q1", "q3"],
+        "dev": ["q4"],
+        "test": ["q2"],
+        "human": ["h0", "h1"],
+    }
+
+
+def test_qrels_and_trec_format() -> None:
+    queries = [
+        {"id": "q2", "passage_id": "p2", "origin": "ict"},
+        {"id": "h1", "passage_id": "p3", "origin": "human", "meta": {"relevant": ["p3", "p1"]}},
+    ]
+    qrels = qrels_for(queries)
+    assert qrels == {"q2": {"p2": 1}, "h1": {"p3": 1, "p1": 1}}
+    text = format_qrels(qrels)
+    assert text == "h1 0 p1 1\nh1 0 p3 1\nq2 0 p2 1\n"
+    for line in text.splitlines():  # four whitespace-separated columns, iteration 0
+        qid, it, docid, rel = line.split()
+        assert it == "0" and int(rel) >= 0
+
+
+def test_format_qrels_keeps_grades() -> None:
+    assert format_qrels({"q": {"b": 2, "a": 0}}) == "q 0 a 0\nq 0 b 2\n"
+
+
+# ---------------------------------------------------------------- leakage audit
+
+TEXT = "the press is rinsed with cold water after every batch and dried before storage"
+
+
+def _passage(pid: str, doc: str, text: str) -> dict:
+    return {"id": pid, "doc_id": doc, "text": text}
+
+
+def test_leakage_audit_finds_identical_and_near_identical() -> None:
+    near = TEXT.replace("storage", "the night")
+    passages = [
+        _passage("t1", "a", TEXT),
+        _passage("t2", "a", "tanks are topped up weekly with fresh cider from the mill"),
+        _passage("x1", "b", TEXT.upper()),  # identical once case and spacing are folded
+        _passage("x2", "c", near),
+        _passage("x3", "b", "labels are printed on the packaging line every morning"),
+    ]
+    out = leakage_audit(passages, DOC_SPLIT, threshold=0.7)
+    # TEXT has 14 words -> 12 trigrams; near has 15 words -> 13 trigrams, 11 shared with TEXT:
+    # Jaccard 11 / (12 + 13 - 11) = 11/14
+    assert out["pairs"] == [
+        {"held_out": "x1", "split": "test", "train": "t1", "jaccard": 1.0},
+        {"held_out": "x2", "split": "dev", "train": "t1", "jaccard": round(11 / 14, 4)},
+    ]
+    assert (out["pairs_found"], out["identical"], out["threshold"]) == (2, 1, 0.7)
+    assert leakage_audit(passages, DOC_SPLIT, threshold=0.8)["pairs_found"] == 1
+
+
+def test_leakage_audit_ignores_pairs_within_train_and_within_held_out() -> None:
+    passages = [
+        _passage("t1", "a", TEXT),
+        _passage("t2", "a", TEXT + " again"),
+        _passage("x1", "b", "labels are printed on the packaging line every morning"),
+        _passage("x2", "c", "labels are printed on the packaging line every morning"),
+    ]
+    out = leakage_audit(passages, DOC_SPLIT, threshold=0.5)
+    assert out["pairs_found"] == 0 and out["pairs"] == [] and out["identical"] == 0
+
+
+def test_leakage_audit_limit() -> None:
+    passages = [_passage("t1", "a", TEXT)] + [_passage(f"x{i}", "b", TEXT) for i in range(5)]
+    out = leakage_audit(passages, DOC_SPLIT, threshold=0.9, limit=2)
+    assert out["pairs_found"] == 5 and out["identical"] == 5
+    assert [p["held_out"] for p in out["pairs"]] == ["x0", "x1"]
