@@ -130,7 +130,7 @@ class MineConfig:
 class TrainConfig:
     epochs: int = 1
     batch_size: int = 32
-    learning_rate: float = 5e-5
+    learning_rate: float = 2e-5
     warmup_ratio: float = 0.1
     max_seq_length: int = 128
     threads: int = 0

@@ -19,7 +19,14 @@ import numpy as np
 from . import __version__
 from .config import Config
 from .errors import GateFailed, StageError
-from .files import atomic_dir, read_jsonl, write_json, write_jsonl, write_text_atomic
+from .files import (
+    atomic_dir,
+    read_jsonl,
+    sha256_file,
+    write_json,
+    write_jsonl,
+    write_text_atomic,
+)
 from .progress import SILENT, Progress
 
 # One salt a stage, so each stage draws from its own seeded generator.
@@ -148,7 +155,15 @@ def split(run: Run) -> dict[str, Any]:
                 write_text_atomic(tmp / f"{s}.tsv", format_qrels({q: qrels[q] for q in ids}))
     write_json(
         run.path("splits.json"),
-        {"seed": run.cfg.seed, "documents": docs, "queries": q_split, "leakage": audit},
+        {
+            "seed": run.cfg.seed,
+            "documents": docs,
+            "queries": q_split,
+            "leakage": audit,
+            "inputs_sha256": {
+                n: sha256_file(run.path(n)) for n in ("passages.jsonl", "queries.jsonl")
+            },
+        },
     )
     return {
         "documents": {s: len(v) for s, v in docs.items()},
@@ -462,7 +477,6 @@ def export(run: Run) -> dict[str, Any]:
     import json
 
     from .export import SCHEMA_VERSION, copy_model, library_versions, model_facts, safe_name
-    from .files import sha256_file
     from .models import weights_hash
 
     model_dir = run.need("model", "train")

@@ -64,7 +64,8 @@ def _ingest_fails(tmp_path: Path, name: str, data: bytes) -> str:
 
 
 def test_malformed_jsonl_line(tmp_path: Path) -> None:
-    err = _ingest_fails(tmp_path, "rows.jsonl", b'{"id": "a", "text": "fine"}\n{"id": "b", "text"\n')
+    bad = b'{"id": "a", "text": "fine"}\n{"id": "b", "text"\n'
+    err = _ingest_fails(tmp_path, "rows.jsonl", bad)
     assert "rows.jsonl:2" in err and "not valid JSON" in err
 
 
@@ -109,14 +110,28 @@ def test_init_writes_template_and_refuses_to_overwrite(tmp_path: Path) -> None:
     assert r2.exit_code == 2 and "already exists" in r2.stderr
 
 
-@pytest.mark.parametrize("bad", ['{"id": "q1", "text": "where?", "doc_id": "nope.md", "quote": "x"}'])
-def test_bad_question_file(tmp_path: Path, bad: str) -> None:
+GOOD_Q = '{"id": "q0", "text": "when does it run?", "doc_id": "a.md", "quote": "runs at dawn"}'
+
+
+@pytest.mark.parametrize(
+    ("bad", "field"),
+    [
+        ('{"id": "q1", "text": "where?", "doc_id": "nope.md", "quote": "x"}', "doc_id"),
+        ('{"id": "q1", "text": "where?", "doc_id": "a.md"}', "quote"),
+        ('{"id": "q1", "text": "where?", "doc_id": "a.md", "quote": "not in it at all"}', "quote"),
+        ('{"id": "q0", "text": "again?", "doc_id": "a.md", "quote": "stops at dusk"}', "id"),
+        ('{"id": "q1", "text": "", "doc_id": "a.md", "quote": "stops at dusk"}', "text"),
+    ],
+)
+def test_bad_question_file(tmp_path: Path, bad: str, field: str) -> None:
     docs = tmp_path / "docs"
     docs.mkdir()
     (docs / "a.md").write_text("# A\n\nThe press runs at dawn. It stops at dusk.\n", "utf-8")
     q = tmp_path / "q.jsonl"
-    q.write_text(bad + "\n", "utf-8")
+    q.write_text(GOOD_Q + "\n" + bad + "\n", "utf-8")
     cfg = write_config(tmp_path, docs, q)
     assert invoke("ingest", str(cfg), "-q").exit_code == 0
     r = invoke("synth", str(cfg), "-q")
-    assert r.exit_code == 2 and "q.jsonl:1" in r.stderr and "doc_id" in r.stderr
+    assert r.exit_code == 2
+    assert "q.jsonl:2" in r.stderr and f"field '{field}'" in r.stderr
+    assert not (tmp_path / "run" / "queries.jsonl").exists()

@@ -28,9 +28,9 @@ def ballast(*args: str, cwd: Path) -> subprocess.CompletedProcess:
 
 @pytest.fixture(scope="module")
 def two_runs(tmp_path_factory: pytest.TempPathFactory):
-    from tests.conftest import DEMO
-
     import shutil
+
+    from tests.conftest import DEMO
 
     out = []
     for name in ("a", "b"):

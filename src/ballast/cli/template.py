@@ -46,7 +46,7 @@ exclude_same_doc = false   # also drop candidates from the positive's own docume
 [train]
 epochs = 1
 batch_size = 32
-learning_rate = 5e-5
+learning_rate = 2e-5
 warmup_ratio = 0.1
 max_seq_length = 128
 threads = 0                # 0 = torch's default
