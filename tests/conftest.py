@@ -14,13 +14,15 @@ DEMO = REPO / "data_demo"
 
 def write_config(folder: Path, docs: Path, questions: Path | None = None, **extra: str) -> Path:
     """A config in ``folder`` pointing at ``docs``; ``extra`` adds raw TOML lines per section."""
-    lines = ['name = "t"', "seed = 7", 'run_dir = "run"', f'[ingest]\ndocs = "{docs}"']
+    sections: dict[str, list[str]] = {"ingest": [f'docs = "{docs}"']}
     if questions:
-        lines.append(f'[synth]\nquestions = "{questions}"')
-    else:
-        lines.append('[evaluate]\nsplits = ["dev", "test"]\n[gate]\nsplits = ["test"]')
+        sections["synth"] = [f'questions = "{questions}"']
+        sections["evaluate"] = ['splits = ["dev", "test", "human"]']
+        sections["gate"] = ['splits = ["test", "human"]']
     for section, body in extra.items():
-        lines.append(f"[{section}]\n{body}")
+        sections.setdefault(section, []).append(body)
+    lines = ['name = "t"', "seed = 7", 'run_dir = "run"']
+    lines += [f"[{name}]\n" + "\n".join(body) for name, body in sections.items()]
     path = folder / "ballast.toml"
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path

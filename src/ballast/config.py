@@ -163,8 +163,12 @@ class EvaluateConfig:
 
     def __post_init__(self) -> None:
         for s in self.splits:
-            if s not in ("train", "dev", "test", "human"):
-                _fail("evaluate.splits", s, "a list drawn from 'train', 'dev', 'test', 'human'")
+            if s not in ("train", "dev", "test", "human", "guard"):
+                _fail(
+                    "evaluate.splits",
+                    s,
+                    "a list drawn from 'train', 'dev', 'test', 'human', 'guard'",
+                )
         for m in self.metrics:
             try:
                 parse_metric(m)
@@ -176,22 +180,57 @@ class EvaluateConfig:
 
 
 @dataclass(frozen=True)
+class GuardConfig:
+    """A general-domain set the tuned model must not get worse on (forgetting is caught)."""
+
+    queries: str = ""
+    qrels: str = ""
+    passages: str = ""
+
+    def __post_init__(self) -> None:
+        given = [k for k in ("queries", "qrels", "passages") if getattr(self, k)]
+        if given and len(given) != 3:
+            missing = [k for k in ("queries", "qrels", "passages") if k not in given]
+            _fail(
+                f"guard.{missing[0]}", "", "a file: a guard set needs queries, qrels and passages"
+            )
+
+    @property
+    def enabled(self) -> bool:
+        return bool(self.queries)
+
+
+@dataclass(frozen=True)
 class GateConfig:
     splits: tuple[str, ...] = ("test",)
     primary_metric: str = "ndcg@10"
     min_gain: float = 0.0
+    alpha: float = 0.05
+    guard_tolerance: float = 0.01
+    min_queries: int = 30
 
     def __post_init__(self) -> None:
         if not self.splits:
             _fail("gate.splits", list(self.splits), "at least one split")
         for s in self.splits:
-            if s not in ("test", "human"):
-                _fail("gate.splits", s, "a list drawn from 'test', 'human' (dev is never gated)")
+            if s not in ("test", "human", "guard"):
+                _fail(
+                    "gate.splits",
+                    s,
+                    "a list drawn from 'test', 'human', 'guard' (dev is never gated)",
+                )
+        if not any(s != "guard" for s in self.splits):
+            _fail(
+                "gate.splits", list(self.splits), "at least one of 'test', 'human' besides 'guard'"
+            )
         try:
             parse_metric(self.primary_metric)
         except ValueError as exc:
             raise ConfigError(str(exc), key="gate.primary_metric") from None
         _range("gate.min_gain", self.min_gain, 0.0, 1.0)
+        _range("gate.alpha", self.alpha, 0.0, 0.5, lo_open=True)
+        _range("gate.guard_tolerance", self.guard_tolerance, 0.0, 1.0)
+        _range("gate.min_queries", self.min_queries, 2, 10**7)
 
 
 @dataclass(frozen=True)
@@ -216,6 +255,7 @@ class Config:
     mine: MineConfig = field(default_factory=MineConfig)
     train: TrainConfig = field(default_factory=TrainConfig)
     evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
+    guard: GuardConfig = field(default_factory=GuardConfig)
     gate: GateConfig = field(default_factory=GateConfig)
     export: ExportConfig = field(default_factory=ExportConfig)
 
@@ -230,6 +270,12 @@ class Config:
                     s,
                     f"a split that evaluate.splits lists {list(self.evaluate.splits)}",
                 )
+        if "guard" in self.evaluate.splits and not self.guard.enabled:
+            _fail(
+                "evaluate.splits",
+                "guard",
+                "guard.queries, guard.qrels and guard.passages set when 'guard' is evaluated",
+            )
         if "human" in self.evaluate.splits and not self.synth.questions:
             _fail(
                 "evaluate.splits",
@@ -252,10 +298,14 @@ SECTIONS: dict[str, type] = {
     "mine": MineConfig,
     "train": TrainConfig,
     "evaluate": EvaluateConfig,
+    "guard": GuardConfig,
     "gate": GateConfig,
     "export": ExportConfig,
 }
 PATH_KEYS = {
+    ("guard", "queries"),
+    ("guard", "qrels"),
+    ("guard", "passages"),
     ("ingest", "docs"),
     ("synth", "questions"),
     ("", "run_dir"),

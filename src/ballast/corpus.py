@@ -207,9 +207,7 @@ def _record_docs(
                 field=cfg.title_field,
             )
         paras = _paragraphs(normalise(text).split("\n"))
-        yield Document(
-            str(doc_id), normalise(title) or str(doc_id), [("", paras)], f"{rel}:{line}"
-        )
+        yield Document(str(doc_id), normalise(title) or str(doc_id), [("", paras)], f"{rel}:{line}")
 
 
 def _csv_rows(path: Path) -> Iterator[tuple[int, dict]]:

@@ -1,14 +1,44 @@
-"""Evaluation: rank the whole corpus for each query, score per query, compare models pairwise."""
+"""Evaluation: rank a whole corpus for each query, score per query, compare models pairwise.
+
+Works on any set: ballast's own splits, a general-domain guard set, or TREC-style files a user
+brings. Each model is loaded once and each corpus encoded once per model (through the cache).
+"""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from .metrics import compute, parse_metric
+from .progress import SILENT, Progress
 from .search import top_k
 from .stats import compare
+from .trec import format_run
+
+
+@dataclass(frozen=True)
+class Corpus:
+    ids: list[str]
+    texts: list[str]
+
+
+@dataclass(frozen=True)
+class EvalSet:
+    """One evaluation split: queries with their judgements, searched against one corpus."""
+
+    name: str
+    corpus: str
+    qids: list[str]
+    texts: list[str]
+    origins: list[str]
+    qrels: list[dict[str, int]]
+
+
+def depth(metrics: list[str]) -> int:
+    return max(parse_metric(m).k for m in metrics)
 
 
 def rank(
@@ -18,17 +48,55 @@ def rank(
     return [[pids[i] for i in row] for row in idx.tolist()], scores
 
 
-def format_run(qids: list[str], ranked: list[list[str]], scores: np.ndarray, tag: str) -> str:
-    """TREC run format: ``qid Q0 docid rank score tag``, ranks from 1."""
-    lines = []
-    for q, docs, sc in zip(qids, ranked, scores, strict=True):
-        for r, (d, s) in enumerate(zip(docs, sc.tolist(), strict=True), start=1):
-            lines.append(f"{q} Q0 {d} {r} {s:.6f} {tag}\n")
-    return "".join(lines)
+def run_models(
+    models: dict[str, tuple[Path, str]],
+    corpora: dict[str, Corpus],
+    sets: list[EvalSet],
+    metrics: list[str],
+    *,
+    cache: Any,
+    batch_size: int,
+    max_seq_length: int | None,
+    progress: Progress = SILENT,
+) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
+    """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``."""
+    from .encode import encode_cached
+    from .models import load_encoder
 
-
-def depth(metrics: list[str]) -> int:
-    return max(parse_metric(m).k for m in metrics)
+    k = depth(metrics)
+    per_query: dict[str, dict[str, dict[str, np.ndarray]]] = {s.name: {} for s in sets}
+    run_files: dict[str, str] = {}
+    for name, (path, fp) in models.items():
+        model = load_encoder(path, max_seq_length=max_seq_length)
+        p_emb = {
+            c: encode_cached(
+                model,
+                fp,
+                corpora[c].texts,
+                cache,
+                batch_size=batch_size,
+                label=f"encoding {c} passages ({name})",
+                progress=progress,
+            )
+            for c in sorted({s.corpus for s in sets})
+        }
+        for s in sets:
+            q_emb = encode_cached(
+                model,
+                fp,
+                s.texts,
+                cache,
+                batch_size=batch_size,
+                label=f"encoding {s.name} queries ({name})",
+                progress=progress,
+            )
+            ranked, scores = rank(q_emb, p_emb[s.corpus], corpora[s.corpus].ids, k)
+            per_query[s.name][name] = compute(metrics, ranked, s.qrels)
+            run_files[f"{name}/{s.name}.run"] = format_run(
+                s.qids, ranked, scores, f"ballast-{name}"
+            )
+        del model
+    return per_query, run_files
 
 
 def summarise_split(
@@ -41,7 +109,8 @@ def summarise_split(
     resamples: int,
     confidence: float,
 ) -> dict[str, Any]:
-    """Means per model, paired comparisons of every other model against ``baseline``."""
+    """Means per model (also per query origin), and paired comparisons of every other model
+    against ``baseline``: bootstrap interval, randomization p-value, effect size."""
     out: dict[str, Any] = {
         "n_queries": len(origins),
         "origins": {o: origins.count(o) for o in sorted(set(origins))},
@@ -58,6 +127,8 @@ def summarise_split(
             model: {m: float(np.mean(v[m][mask])) for m in metrics}
             for model, v in per_query.items()
         }
+    if len(origins) < 2:
+        return out
     for model, values in per_query.items():
         if model == baseline:
             continue
@@ -76,7 +147,49 @@ def summarise_split(
     return out
 
 
-def score(
-    ranked: list[list[str]], qrels: list[dict[str, int]], metrics: list[str]
-) -> dict[str, np.ndarray]:
-    return compute(metrics, ranked, qrels)
+def summarise(
+    per_query: dict[str, dict[str, dict[str, np.ndarray]]],
+    sets: list[EvalSet],
+    metrics: list[str],
+    models: dict[str, tuple[Path, str]],
+    *,
+    baseline: str,
+    seed: int,
+    resamples: int,
+    confidence: float,
+) -> dict[str, Any]:
+    summary: dict[str, Any] = {
+        "metrics": metrics,
+        "confidence": confidence,
+        "bootstrap_resamples": resamples,
+        "seed": seed,
+        "baseline": baseline,
+        "models": {n: {"fingerprint": fp} for n, (_, fp) in models.items()},
+        "splits": {},
+    }
+    for j, s in enumerate(sets):
+        summary["splits"][s.name] = summarise_split(
+            per_query[s.name],
+            s.origins,
+            metrics,
+            baseline=baseline,
+            seed=seed * 1000 + j,
+            resamples=resamples,
+            confidence=confidence,
+        )
+    return summary
+
+
+def per_query_rows(
+    per_query: dict[str, dict[str, dict[str, np.ndarray]]], sets: list[EvalSet], metrics: list[str]
+) -> list[list[str]]:
+    """Rows of per_query.csv: split, query_id, origin, model, one column a metric."""
+    rows = []
+    for s in sets:
+        for model, values in per_query[s.name].items():
+            for i, q in enumerate(s.qids):
+                rows.append(
+                    [s.name, q, s.origins[i], model]
+                    + [repr(round(float(values[m][i]), 10)) for m in metrics]
+                )
+    return rows

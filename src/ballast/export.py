@@ -55,8 +55,13 @@ def model_facts(model_dir: Path) -> dict[str, Any]:
         if m.get("type", "").endswith("Pooling"):
             cfg = json.loads((model_dir / m["path"] / "config.json").read_text("utf-8"))
             pooling = cfg.get("pooling_mode") or next(
-                (k.removeprefix("pooling_mode_").removesuffix("_tokens")
-                 for k, v in cfg.items() if k.startswith("pooling_mode_") and v), None)
+                (
+                    k.removeprefix("pooling_mode_").removesuffix("_tokens")
+                    for k, v in cfg.items()
+                    if k.startswith("pooling_mode_") and v
+                ),
+                None,
+            )
     return {
         "dimension": int(model.get_embedding_dimension()),
         "pooling": pooling,

@@ -74,11 +74,6 @@ def qrels_for(queries: list[dict]) -> dict[str, dict[str, int]]:
     return rel
 
 
-def format_qrels(qrels: dict[str, dict[str, int]]) -> str:
-    """TREC qrels: ``query_id 0 doc_id relevance``, one judgement a line."""
-    return "".join(f"{q} 0 {d} {r}\n" for q in sorted(qrels) for d, r in sorted(qrels[q].items()))
-
-
 def _shingles(text: str, n: int = 3) -> set[str]:
     words = collapse(text).lower().split()
     if len(words) < n:

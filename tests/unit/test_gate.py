@@ -85,7 +85,7 @@ def test_min_gain() -> None:
     out = decide(metrics(test=comparison(0.049, 0.01, 0.09)), cfg)
     assert out["passed"] is False
     assert "less than the required +0.0500" in out["splits"][0]["reason"]
-    assert "interval" not in out["splits"][0]["reason"]  # only the broken rule is named
+    assert "interval [+0.0100, +0.0900] lies above zero" in out["splits"][0]["reason"]
 
 
 def test_both_rules_broken_both_named() -> None:
@@ -102,7 +102,8 @@ def test_missing_split_fails() -> None:
     assert missing == {
         "split": "human",
         "passed": False,
-        "reason": "split 'human' was not evaluated for tuned",
+        "n_queries": 0,
+        "reason": "split 'human' has no comparison of tuned with base (0 queries evaluated)",
     }
 
 
@@ -124,3 +125,37 @@ def test_other_candidate_names() -> None:
     out = decide(m, GateConfig(splits=("test",)), candidate="adapter", baseline="tuned")
     assert out["passed"] is True
     assert "adapter" in out["summary"] and "tuned" in out["summary"]
+
+
+def test_holm_correction_across_gated_splits() -> None:
+    # Holm (1979): p-values 0.03 and 0.04 over two splits adjust to 0.06 and 0.06 (computed by
+    # hand: sorted 0.03*2 = 0.06, max(0.06, 0.04*1) = 0.06), so neither passes at alpha 0.05,
+    # although each would pass alone.
+    a, b = dict(GOOD, p_value=0.03), dict(GOOD, p_value=0.04)
+    alone = decide(metrics(test=a), GateConfig(splits=("test",)))
+    assert alone["passed"] is True and alone["splits"][0]["p_holm"] == pytest.approx(0.03)
+    both = decide(metrics(test=a, human=b), CFG)
+    assert both["passed"] is False
+    assert [s["p_holm"] for s in both["splits"]] == pytest.approx([0.06, 0.06])
+    assert "Holm-adjusted 0.0600 > alpha 0.05" in both["splits"][0]["reason"]
+
+
+def test_too_few_queries_cannot_decide() -> None:
+    out = decide(metrics(test=dict(GOOD, n=12)), GateConfig(splits=("test",), min_queries=30))
+    assert out["passed"] is False
+    assert "12 queries are too few to decide: the gate needs at least 30" in (
+        out["splits"][0]["reason"]
+    )
+
+
+def test_guard_is_non_inferiority() -> None:
+    cfg = GateConfig(splits=("test", "guard"), guard_tolerance=0.01)
+    # a small loss on the guard set, within tolerance: passes
+    ok = decide(metrics(test=GOOD, guard=comparison(-0.002, -0.008, 0.004)), cfg)
+    assert ok["passed"] is True and ok["splits"][1]["rule"] == "non-inferiority"
+    # the interval reaches below the allowed loss: forgetting, fails and says so
+    bad = decide(metrics(test=GOOD, guard=comparison(-0.004, -0.02, 0.01)), cfg)
+    assert bad["passed"] is False and "guard" in bad["summary"]
+    assert "reaches below the allowed loss -0.0100" in bad["splits"][1]["reason"]
+    # the guard takes no part in the Holm family of the superiority splits
+    assert bad["splits"][0]["p_holm"] == pytest.approx(GOOD["p_value"])

@@ -15,10 +15,10 @@ from hypothesis import strategies as st
 
 from ballast import InputError
 from ballast.config import SplitConfig
+from ballast.trec import format_qrels
 from ballast.splits import (
     assign_documents,
     assign_queries,
-    format_qrels,
     leakage_audit,
     qrels_for,
 )

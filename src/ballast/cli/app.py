@@ -115,11 +115,81 @@ for _name, _doc in [
     ("split", "Split by document into train/dev/test, write TREC qrels and a leakage audit."),
     ("mine", "Mine hard negatives for the training pairs with the base model (negatives.jsonl)."),
     ("train", "Fine-tune the base model on the training pairs (model/)."),
-    ("evaluate", "Score base and tuned models on every evaluation split (metrics.json)."),
     ("gate", "Decide whether the tuned model ships (gate.json); exit 1 if it does not."),
     ("export", "Write the versioned bundle with its manifest for the index builder."),
 ]:
     _make_stage_command(_name, _doc)
+
+
+@app.command("evaluate")
+def evaluate_command(
+    target: Annotated[
+        Path | None,
+        typer.Argument(
+            help="A config file or run folder; or leave out and give --qrels/--queries/--passages."
+        ),
+    ] = None,
+    model: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--model",
+            "-m",
+            metavar="NAME=PATH",
+            help="A model to compare (a local sentence-transformers folder or packaged:NAME); "
+            "repeat; the first is the baseline. Only with --qrels.",
+        ),
+    ] = None,
+    queries: Annotated[Path | None, typer.Option(help="Queries: JSONL {id,text} or TSV.")] = None,
+    qrels: Annotated[Path | None, typer.Option(help="TREC qrels file.")] = None,
+    passages: Annotated[Path | None, typer.Option(help="Passages: JSONL {id,text} or TSV.")] = None,
+    out: Annotated[
+        Path | None,
+        typer.Option(help="Folder for metrics.json, per_query.csv, runs/ (with --qrels)."),
+    ] = None,
+    set_: Sets = None,
+    as_json: Json = False,
+    quiet: Quiet = False,
+) -> None:
+    """Score base and tuned models on every evaluation split (metrics.json); or compare any
+    models on any TREC-style set (--model, --queries, --qrels, --passages, --out)."""
+    files = [queries, qrels, passages]
+    if not any(files) and not model:
+        if target is None:
+            sys.stderr.write(
+                "error: give a config file or run folder, or --qrels, --queries, "
+                "--passages, --model and --out\n"
+            )
+            raise typer.Exit(2)
+        _stage("evaluate", target, set_, as_json, quiet)
+        return
+    from ..config import load_config
+    from ..stages import evaluate_files
+
+    try:
+        if not all(files) or not out or not model:
+            from ..errors import ConfigError
+
+            raise ConfigError(
+                "comparing models on a set of files needs --queries, --qrels, "
+                "--passages, --out and at least one --model"
+            )
+        cfg = _load(target, set_) if target is not None else load_config(None, set_ or [])
+        summary = evaluate_files(
+            model,
+            queries,
+            qrels,
+            passages,
+            out,
+            cfg,  # type: ignore[arg-type]
+            StderrProgress(quiet or as_json),
+        )
+    except BallastError as exc:
+        _fail(exc)
+    if as_json:
+        emit_json(summary)
+    else:
+        typer.echo(metrics_table(summary, SHOWN))
+        typer.echo(f"wrote {out / 'metrics.json'}, {out / 'per_query.csv'}, {out / 'runs'}/")
 
 
 def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:

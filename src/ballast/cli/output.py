@@ -68,22 +68,28 @@ def stage_line(result: dict[str, Any]) -> str:
 
 
 def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
+    """Per split: each model's mean, and each model's difference from the baseline with its
+    interval and randomization p-value."""
     lines = []
+    base = metrics.get("baseline", "base")
+    pct = f"{100 * metrics['confidence']:g}%"
     for split, info in metrics["splits"].items():
-        comp = info["comparisons"].get("tuned_vs_base", {})
+        names = list(info["models"])
         lines.append(f"split {split} ({info['n_queries']} queries)")
-        lines.append(
-            f"  {'metric':<12} {'base':>7} {'tuned':>7} {'diff':>8}  "
-            f"{round(100 * metrics['confidence'])}% interval of diff   p"
-        )
+        head = "".join(f" {n[:10]:>10}" for n in names)
+        lines.append(f"  {'metric':<12}{head}   diff vs {base}, {pct} interval, p")
         for m in shown:
-            if m not in info["models"].get("base", {}):
+            if m not in info["models"][base]:
                 continue
-            b = info["models"]["base"][m]["mean"]
-            t = info["models"]["tuned"][m]["mean"]
-            c = comp.get(m)
-            tail = f"  [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}]   {c['p_value']:.4f}" if c else ""
-            lines.append(f"  {m:<12} {b:7.4f} {t:7.4f} {t - b:+8.4f}{tail}")
+            means = "".join(f" {info['models'][n][m]['mean']:10.4f}" for n in names)
+            tails = []
+            for n in names:
+                c = info["comparisons"].get(f"{n}_vs_{base}", {}).get(m)
+                if c:
+                    label = f"{n}: " if len(names) > 2 else ""
+                    tails.append(f"{label}{c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, "
+                                 f"{c['ci_high']:+.4f}] p={c['p_value']:.4f}")
+            lines.append(f"  {m:<12}{means}   {'; '.join(tails)}")
     return "\n".join(lines)
 
 

@@ -59,10 +59,18 @@ bootstrap_resamples = 10000
 confidence = 0.95
 batch_size = 64
 
+[guard]                    # optional general-domain set, to catch forgetting; then add
+queries = ""               # "guard" to evaluate.splits and gate.splits. Queries and passages:
+qrels = ""                 # JSONL {"id","text"} or TSV id<TAB>text; qrels: TREC format
+passages = ""
+
 [gate]
 splits = ["test"]          # the tuned model must win on every one ("human" too, with questions)
 primary_metric = "ndcg@10"
 min_gain = 0.0             # required mean gain; the interval must also lie above zero
+alpha = 0.05               # randomization test level, Holm-corrected across gated splits
+guard_tolerance = 0.01     # the guard split may lose at most this much (non-inferiority)
+min_queries = 30           # a gated split with fewer queries cannot decide and fails
 
 [export]
 dir = ""                   # default: <run_dir>/bundle

@@ -96,8 +96,7 @@ def keyword_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
     return out
 
 
-def heading_queries(passages: list[dict], cfg: SynthConfig,
-                    rng: np.random.Generator) -> list[dict]:
+def heading_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Generator) -> list[dict]:
     """The section heading, prefixed by the document title, as one query per section
     (title-as-query pairs): people write headings to say what a section answers, so they
     read like a search. Every passage of the section is judged relevant; the training
@@ -114,8 +113,15 @@ def heading_queries(passages: list[dict], cfg: SynthConfig,
         text = f"{title}: {heading}" if title and title != heading else heading
         ids = [m["id"] for m in members]
         pos = ids[int(rng.integers(len(ids)))]
-        out.append({"id": query_id("heading", ids[0], 0), "text": text, "passage_id": pos,
-                    "origin": "heading", "meta": {"relevant": ids}})
+        out.append(
+            {
+                "id": query_id("heading", ids[0], 0),
+                "text": text,
+                "passage_id": pos,
+                "origin": "heading",
+                "meta": {"relevant": ids},
+            }
+        )
     return out
 
 
