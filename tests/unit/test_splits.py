@@ -15,13 +15,13 @@ from hypothesis import strategies as st
 
 from ballast import InputError
 from ballast.config import SplitConfig
-from ballast.trec import format_qrels
 from ballast.splits import (
     assign_documents,
     assign_queries,
     leakage_audit,
     qrels_for,
 )
+from ballast.trec import format_qrels
 
 DOCS = [f"doc-{i:03d}" for i in range(40)]
 
