@@ -87,8 +87,10 @@ def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
                 c = info["comparisons"].get(f"{n}_vs_{base}", {}).get(m)
                 if c:
                     label = f"{n}: " if len(names) > 2 else ""
-                    tails.append(f"{label}{c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, "
-                                 f"{c['ci_high']:+.4f}] p={c['p_value']:.4f}")
+                    tails.append(
+                        f"{label}{c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, "
+                        f"{c['ci_high']:+.4f}] p={c['p_value']:.4f}"
+                    )
             lines.append(f"  {m:<12}{means}   {'; '.join(tails)}")
     return "\n".join(lines)
 

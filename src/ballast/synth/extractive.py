@@ -125,6 +125,15 @@ def heading_queries(passages: list[dict], cfg: SynthConfig, rng: np.random.Gener
     return out
 
 
+def training_positive(query: dict, passage: dict) -> str:
+    """The positive text a pair trains on: for a masked inverse-cloze query, the passage
+    without the query sentence."""
+    text = passage["text"]
+    if query.get("meta", {}).get("masked"):
+        text = " ".join(text.replace(query["text"], " ", 1).split())
+    return text
+
+
 GENERATORS = {"ict": ict_queries, "keywords": keyword_queries, "headings": heading_queries}
 
 

@@ -1,0 +1,206 @@
+"""Stage evaluate: base vs tuned on every split -> metrics.json, per_query.csv, runs/."""
+
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+from typing import Any
+
+from ..config import Config
+from ..errors import StageError
+from ..evaluate import Corpus, EvalSet
+from ..files import (
+    atomic_dir,
+    write_json,
+    write_text_atomic,
+)
+from ..progress import SILENT, Progress
+from .run import Run
+
+
+def write_evaluation(
+    out: Path, summary: dict[str, Any], rows: list[list[str]], run_files: dict[str, str]
+) -> None:
+    """metrics.json, per_query.csv and runs/<model>/<split>.run, each written atomically."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["split", "query_id", "origin", "model", *summary["metrics"]])
+    w.writerows(rows)
+    with atomic_dir(out / "runs") as tmp:
+        for rel, text in run_files.items():
+            (tmp / rel).parent.mkdir(parents=True, exist_ok=True)
+            write_text_atomic(tmp / rel, text)
+    write_text_atomic(out / "per_query.csv", buf.getvalue())
+    write_json(out / "metrics.json", summary)
+
+
+def guard_set(run: Run) -> tuple[Corpus, EvalSet]:
+    """The general-domain guard split from the user's TREC-style files."""
+    from ..trec import read_qrels, read_texts
+
+    g = run.cfg.guard
+    passages = read_texts(g.passages, "passage")
+    queries = read_texts(g.queries, "query")
+    qrels = read_qrels(g.qrels)
+    known = {pid for pid, _ in passages}
+    judged = [(q, t) for q, t in queries if any(r > 0 for r in qrels.get(q, {}).values())]
+    for q, _ in judged:
+        missing = [d for d in qrels[q] if d not in known]
+        if missing:
+            raise StageError(
+                f"{g.qrels}: query {q!r} judges document {missing[0]!r}, which is "
+                f"not in {g.passages}"
+            )
+    corpus = Corpus([p for p, _ in passages], [t for _, t in passages])
+    return corpus, EvalSet(
+        "guard",
+        "guard",
+        [q for q, _ in judged],
+        [t for _, t in judged],
+        ["guard"] * len(judged),
+        [qrels[q] for q, _ in judged],
+    )
+
+
+def evaluate(run: Run) -> dict[str, Any]:
+    from ..evaluate import per_query_rows, run_models, summarise
+    from ..models import model_fingerprint
+    from ..splits import qrels_for
+
+    cfg = run.cfg.evaluate
+    passages, queries, splits = run.passages(), run.queries(), run.splits()
+    by_qid = {q["id"]: q for q in queries}
+    tuned_path = run.need("model", "train")
+    models = {
+        "base": (run.base_path, run.base_fp),
+        "tuned": (tuned_path, model_fingerprint(tuned_path)),
+    }
+    metrics = list(cfg.metrics)
+    qrels_all = qrels_for(queries)
+    corpora = {"main": Corpus([p["id"] for p in passages], [p["text"] for p in passages])}
+    sets = []
+    for s in cfg.splits:
+        if s == "guard":
+            corpora["guard"], guard = guard_set(run)
+            sets.append(guard)
+            continue
+        qids = splits["queries"].get(s, [])
+        if qids:
+            sets.append(
+                EvalSet(
+                    s,
+                    "main",
+                    qids,
+                    [by_qid[q]["text"] for q in qids],
+                    [by_qid[q]["origin"] for q in qids],
+                    [qrels_all[q] for q in qids],
+                )
+            )
+    skipped = [s for s in cfg.splits if s not in {x.name for x in sets}]
+    per_query, run_files = run_models(
+        models,
+        corpora,
+        sets,
+        metrics,
+        cache=run.cache(),
+        batch_size=cfg.batch_size,
+        max_seq_length=run.cfg.train.max_seq_length,
+        progress=run.progress,
+    )
+    summary = summarise(
+        per_query,
+        sets,
+        metrics,
+        models,
+        baseline="base",
+        seed=run.cfg.seed,
+        resamples=cfg.bootstrap_resamples,
+        confidence=cfg.confidence,
+    )
+    summary["skipped_splits"] = skipped
+    write_evaluation(run.dir, summary, per_query_rows(per_query, sets, metrics), run_files)
+    return {"splits": {s.name: len(s.qids) for s in sets}, "skipped_splits": skipped}
+
+
+def evaluate_files(
+    models: list[str],
+    queries: Path,
+    qrels: Path,
+    passages: Path,
+    out: Path,
+    cfg: Config,
+    progress: Progress = SILENT,
+) -> dict[str, Any]:
+    """Compare any models on any TREC-style set; the first model is the baseline."""
+    from ..encode import EmbeddingCache
+    from ..errors import InputError
+    from ..evaluate import per_query_rows, run_models, summarise
+    from ..models import model_fingerprint, resolve_model
+    from ..trec import read_qrels, read_texts
+
+    named: dict[str, tuple[Path, str]] = {}
+    for item in models:
+        name, _, spec = item.rpartition("=") if "=" in item else ("", "", item)
+        name = name or Path(spec).name or spec
+        if not name.replace("-", "").replace("_", "").replace(".", "").isalnum():
+            raise InputError(
+                f"model name {name!r}: use letters, digits, '-', '_' or '.'", field="--model"
+            )
+        if name in named:
+            raise InputError(
+                f"model name {name!r} given twice; name them NAME=PATH", field="--model"
+            )
+        path = resolve_model(spec)
+        named[name] = (path, model_fingerprint(path))
+    plist = read_texts(passages, "passage")
+    qlist = read_texts(queries, "query")
+    judged = read_qrels(qrels)
+    known = {p for p, _ in plist}
+    kept = [(q, t) for q, t in qlist if any(r > 0 for r in judged.get(q, {}).values())]
+    if not kept:
+        raise InputError("no query has a relevant judgement in the qrels", path=qrels)
+    for q, _ in kept:
+        missing = [d for d in judged[q] if d not in known]
+        if missing:
+            raise InputError(
+                f"query {q!r} judges document {missing[0]!r}, which is not among the passages",
+                path=qrels,
+            )
+    corpora = {"set": Corpus([p for p, _ in plist], [t for _, t in plist])}
+    sets = [
+        EvalSet(
+            "set",
+            "set",
+            [q for q, _ in kept],
+            [t for _, t in kept],
+            ["file"] * len(kept),
+            [judged[q] for q, _ in kept],
+        )
+    ]
+    ev = cfg.evaluate
+    metrics = list(ev.metrics)
+    per_query, run_files = run_models(
+        named,
+        corpora,
+        sets,
+        metrics,
+        cache=EmbeddingCache(out / "cache"),
+        batch_size=ev.batch_size,
+        max_seq_length=None,
+        progress=progress,
+    )
+    baseline = next(iter(named))
+    summary = summarise(
+        per_query,
+        sets,
+        metrics,
+        named,
+        baseline=baseline,
+        seed=cfg.seed,
+        resamples=ev.bootstrap_resamples,
+        confidence=ev.confidence,
+    )
+    summary["queries_without_judgements"] = len(qlist) - len(kept)
+    write_evaluation(out, summary, per_query_rows(per_query, sets, metrics), run_files)
+    return summary

@@ -1,0 +1,21 @@
+"""Stage gate: metrics.json -> gate.json (the release decision)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from ..files import (
+    write_json,
+)
+from .run import Run
+
+
+def gate(run: Run) -> dict[str, Any]:
+    import json
+
+    from ..gate import decide
+
+    metrics = json.loads(run.need("metrics.json", "evaluate").read_text("utf-8"))
+    verdict = decide(metrics, run.cfg.gate)
+    write_json(run.path("gate.json"), verdict)
+    return {"passed": verdict["passed"], "summary": verdict["summary"]}
