@@ -18,6 +18,8 @@ from .errors import ConfigError
 from .metrics import parse_metric
 
 PACKAGED_BASE = "packaged:all-MiniLM-L6-v2"
+EVAL_SPLITS = ("train", "dev", "test", "human", "human_heldout", "guard")
+GATE_SPLITS = ("test", "human", "human_heldout", "guard")
 
 
 def _fail(key: str, value: Any, expected: str) -> typing.NoReturn:
@@ -163,12 +165,8 @@ class EvaluateConfig:
 
     def __post_init__(self) -> None:
         for s in self.splits:
-            if s not in ("train", "dev", "test", "human", "guard"):
-                _fail(
-                    "evaluate.splits",
-                    s,
-                    "a list drawn from 'train', 'dev', 'test', 'human', 'guard'",
-                )
+            if s not in EVAL_SPLITS:
+                _fail("evaluate.splits", s, f"a list drawn from {', '.join(EVAL_SPLITS)}")
         for m in self.metrics:
             try:
                 parse_metric(m)
@@ -213,11 +211,9 @@ class GateConfig:
         if not self.splits:
             _fail("gate.splits", list(self.splits), "at least one split")
         for s in self.splits:
-            if s not in ("test", "human", "guard"):
+            if s not in GATE_SPLITS:
                 _fail(
-                    "gate.splits",
-                    s,
-                    "a list drawn from 'test', 'human', 'guard' (dev is never gated)",
+                    "gate.splits", s, f"a list drawn from {', '.join(GATE_SPLITS)} (dev is never gated)"
                 )
         if not any(s != "guard" for s in self.splits):
             _fail(
@@ -276,10 +272,11 @@ class Config:
                 "guard",
                 "guard.queries, guard.qrels and guard.passages set when 'guard' is evaluated",
             )
-        if "human" in self.evaluate.splits and not self.synth.questions:
+        human = [s for s in self.evaluate.splits if s.startswith("human")]
+        if human and not self.synth.questions:
             _fail(
                 "evaluate.splits",
-                "human",
+                human[0],
                 "synth.questions set to a questions file when the 'human' split is evaluated",
             )
 

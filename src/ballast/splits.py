@@ -56,11 +56,16 @@ def assign_documents(
 def assign_queries(
     queries: list[dict], passages: dict[str, dict], doc_split: dict[str, str]
 ) -> dict[str, list[str]]:
-    """Split name -> query ids: human questions form 'human'; others follow their document."""
-    out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, "human")}
+    """Split name -> query ids. Human questions form 'human'; those whose answers all lie in
+    held-out documents also form 'human_heldout' (real questions about documents the model
+    never trained on). Generated queries follow their document."""
+    out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, "human", "human_heldout")}
     for q in queries:
         if q["origin"] == "human":
             out["human"].append(q["id"])
+            relevant = q.get("meta", {}).get("relevant") or [q["passage_id"]]
+            if all(doc_split[passages[r]["doc_id"]] != "train" for r in relevant):
+                out["human_heldout"].append(q["id"])
         else:
             out[doc_split[passages[q["passage_id"]]["doc_id"]]].append(q["id"])
     return {s: sorted(ids) for s, ids in out.items()}

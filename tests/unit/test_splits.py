@@ -118,6 +118,7 @@ def test_assign_queries() -> None:
         "dev": ["q4"],
         "test": ["q2"],
         "human": ["h0", "h1"],
+        "human_heldout": ["h0"],  # its answer is in a held-out document
     }
 
 
