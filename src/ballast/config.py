@@ -7,6 +7,7 @@ allowed. Paths in a config file are relative to the folder of that file.
 from __future__ import annotations
 
 import dataclasses
+import os
 import difflib
 import tomllib
 import typing
@@ -112,20 +113,49 @@ class SplitConfig:
 
 @dataclass(frozen=True)
 class MineConfig:
+    """Hard-negative mining; docs/mining.md explains every rule. A ceiling of 0 (1.0 for
+    ``max_score``) is off."""
+
     negatives: int = 1
     window_start: int = 0
     window_end: int = 30
     max_relative: float = 0.95
+    max_margin: float = 0.0
+    max_score: float = 1.0
+    near_duplicate: float = 0.6
     sample: str = "random"
     exclude_same_doc: bool = False
+    rescorer: str = ""
+    rescorer_model: str = ""
+    rescorer_threshold: float = 0.95
+    search: str = "auto"
+    faiss_above: int = 50_000
 
     def __post_init__(self) -> None:
         _range("mine.negatives", self.negatives, 0, 64)
         _range("mine.window_start", self.window_start, 0, 10_000)
         _range("mine.window_end", self.window_end, self.window_start + 1, 10_000)
-        _range("mine.max_relative", self.max_relative, 0.0, 1.0, lo_open=True)
+        if not 0.0 <= self.max_relative <= 1.0:
+            _fail("mine.max_relative", self.max_relative, "0 (off) or a number in (0, 1]")
+        _range("mine.max_margin", self.max_margin, 0.0, 2.0)
+        _range("mine.max_score", self.max_score, -1.0, 1.0, lo_open=True)
+        _range("mine.near_duplicate", self.near_duplicate, 0.0, 1.0)
         if self.sample not in ("random", "top"):
             _fail("mine.sample", self.sample, "'random' or 'top'")
+        if self.rescorer not in ("", "cross-encoder", "query-likelihood"):
+            _fail("mine.rescorer", self.rescorer, "'', 'cross-encoder' or 'query-likelihood'")
+        if self.rescorer and not self.rescorer_model:
+            _fail("mine.rescorer_model", "", "a local model folder when mine.rescorer is set")
+        if self.rescorer_model and not self.rescorer:
+            _fail(
+                "mine.rescorer",
+                "",
+                "'cross-encoder' or 'query-likelihood' when mine.rescorer_model is set",
+            )
+        _range("mine.rescorer_threshold", self.rescorer_threshold, 0.0, 10.0, lo_open=True)
+        if self.search not in ("auto", "exact", "faiss"):
+            _fail("mine.search", self.search, "'auto', 'exact' or 'faiss'")
+        _range("mine.faiss_above", self.faiss_above, 1, 10**9)
 
 
 @dataclass(frozen=True)
@@ -305,6 +335,7 @@ PATH_KEYS = {
     ("guard", "passages"),
     ("ingest", "docs"),
     ("synth", "questions"),
+    ("mine", "rescorer_model"),
     ("", "run_dir"),
     ("", "base_model"),
     ("export", "dir"),
@@ -391,7 +422,7 @@ def _resolve_paths(data: dict[str, Any], base: Path) -> None:
         if not isinstance(value, str) or not value or value.startswith("packaged:"):
             continue
         p = Path(value).expanduser()
-        table[key] = str(p if p.is_absolute() else (base / p))
+        table[key] = os.path.normpath(p if p.is_absolute() else (base / p))
 
 
 def load_config(

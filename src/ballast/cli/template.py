@@ -35,13 +35,24 @@ test_fraction = 0.2        # share of documents held out for the test split
 dev_fraction = 0.1         # share held out for dev (never gated)
 leakage_threshold = 0.9    # word 3-gram Jaccard at which held-out passages count as leaked
 
-[mine]
+[mine]                     # docs/mining.md explains every rule
 negatives = 1              # hard negatives per training pair (0 = in-batch only)
 window_start = 0           # candidate ranks [window_start, window_end) of the base ranking
 window_end = 30
-max_relative = 0.95        # drop candidates scoring above this fraction of the positive
+max_relative = 0.95        # drop candidates scoring above this fraction of the positive; 0 = off
+max_margin = 0.0           # drop candidates scoring above the positive's score minus this; 0 = off
+max_score = 1.0            # drop candidates whose cosine is above this; 1.0 = off
+near_duplicate = 0.6       # drop candidates whose word 3-gram Jaccard with the positive is at
+                           # least this (near-copies); 0 = off
 sample = "random"          # "random" inside the window, or "top"
 exclude_same_doc = false   # also drop candidates from the positive's own document
+rescorer = ""              # a second opinion on the survivors: "cross-encoder" or
+                           # "query-likelihood" (a local causal language model); "" = none
+rescorer_model = ""        # its local folder (safetensors; a .gguf for query-likelihood)
+rescorer_threshold = 0.95  # drop a candidate the re-scorer rates at least this fraction of
+                           # the positive (probability, or per-token query likelihood)
+search = "auto"            # "exact" (chunked matrix products), "faiss", or "auto": by size
+faiss_above = 50000        # with "auto", FAISS from this many training passages on
 
 [train]
 epochs = 1

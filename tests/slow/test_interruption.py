@@ -1,0 +1,79 @@
+"""Killing the process (SIGKILL) inside a stage loses nothing: the next run resumes, never
+reads a half-written file, and ends with the same metrics as a run never interrupted."""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from tests.conftest import DEMO, write_config
+
+pytestmark = pytest.mark.slow
+
+TINY = {"train": "batch_size = 8\nmax_seq_length = 64", "evaluate": "bootstrap_resamples = 500",
+        "gate": "min_queries = 2", "ingest": "max_tokens = 64\noverlap_tokens = 8"}
+# (stage to interrupt, the file whose appearance says it has started, seconds to wait after)
+KILLS = [("ingest", None, 4.0), ("mine", "split.done.json", 3.0),
+         ("train", "mine.done.json", 8.0), ("evaluate", "train.done.json", 3.0)]
+
+
+def project(root: Path) -> Path:
+    docs = root / "docs"
+    docs.mkdir(parents=True)
+    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:3]:
+        text = (DEMO / "docs" / name).read_text("utf-8")
+        (docs / name).write_text(text[:3500], "utf-8")  # a few passages a document
+    return write_config(root, docs, **TINY)
+
+
+def cmd(cfg: Path) -> list[str]:
+    return [sys.executable, "-m", "ballast", "run", str(cfg), "-q"]
+
+
+def test_sigkill_in_each_stage_then_resume(tmp_path: Path) -> None:
+    ref_cfg = project(tmp_path / "ref")
+    ref = subprocess.run(cmd(ref_cfg), cwd=ref_cfg.parent, capture_output=True, text=True)
+    assert ref.returncode in (0, 1), ref.stderr
+    cfg = project(tmp_path / "killed")
+    run = cfg.parent / "run"
+    killed_in = []
+    for stage, started, wait in KILLS:
+        proc = subprocess.Popen(cmd(cfg), cwd=cfg.parent, stdout=subprocess.DEVNULL,
+                                stderr=subprocess.DEVNULL, start_new_session=True)
+        deadline = time.monotonic() + 300
+        while started and not (run / started).exists() and time.monotonic() < deadline:
+            if proc.poll() is not None:
+                break
+            time.sleep(0.05)
+        time.sleep(wait)
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+            if not (run / f"{stage}.done.json").exists():
+                killed_in.append(stage)
+        # whatever is on disk now is either whole or absent: every JSON file parses
+        for f in run.rglob("*.json*"):
+            if ".tmp" in f.name or f.name.startswith("."):
+                continue
+            text = f.read_text("utf-8")
+            if f.suffix == ".jsonl":
+                [json.loads(line) for line in text.splitlines() if line.strip()]
+            else:
+                json.loads(text)
+    assert {"mine", "train"} <= set(killed_in), killed_in  # the long stages were interrupted
+    final = subprocess.run(cmd(cfg), cwd=cfg.parent, capture_output=True, text=True)
+    assert final.returncode == ref.returncode, final.stderr
+    for rel in ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl",
+                "metrics.json", "per_query.csv", "gate.json"):
+        assert (run / rel).read_bytes() == (tmp_path / "ref" / "run" / rel).read_bytes(), rel
+    leftovers = [p for p in run.rglob("*") if p.name.endswith(".tmp")]
+    assert not leftovers
+    shutil.rmtree(tmp_path, ignore_errors=True)

@@ -1,0 +1,67 @@
+"""Security rules: models load only from local folders, safetensors only, no remote code;
+bundle names cannot climb out of their export folder (common practice: unpickling runs
+arbitrary code, and `auto_map` in a model's config.json asks to import code shipped with it)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from ballast.config import load_config
+from ballast.errors import ConfigError, InputError
+from ballast.export import safe_name
+from ballast.models import check_model_folder, resolve_model
+
+
+def _folder(tmp_path: Path, files: dict[str, bytes]) -> Path:
+    d = tmp_path / "model"
+    d.mkdir()
+    for name, data in files.items():
+        (d / name).write_bytes(data)
+    return d
+
+
+def test_pickled_weights_are_refused(tmp_path: Path) -> None:
+    d = _folder(tmp_path, {"pytorch_model.bin": b"\x80\x04pickle", "config.json": b"{}"})
+    with pytest.raises(InputError, match="pickle"):
+        check_model_folder(d)
+
+
+def test_no_weights_is_refused(tmp_path: Path) -> None:
+    d = _folder(tmp_path, {"config.json": b"{}"})
+    with pytest.raises(InputError, match="safetensors"):
+        check_model_folder(d)
+
+
+def test_remote_code_is_refused(tmp_path: Path) -> None:
+    cfg = json.dumps({"auto_map": {"AutoModel": "modeling_evil.Model"}}).encode()
+    d = _folder(tmp_path, {"model.safetensors": b"x", "config.json": cfg})
+    with pytest.raises(InputError, match="remote code"):
+        check_model_folder(d)
+
+
+def test_a_hub_name_is_not_a_model(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    with pytest.raises(InputError, match="never downloads"):
+        resolve_model("sentence-transformers/all-MiniLM-L6-v2")
+    with pytest.raises(InputError, match="unknown packaged model"):
+        resolve_model("packaged:nope")
+
+
+def test_packaged_base_model_is_clean() -> None:
+    path = resolve_model("packaged:all-MiniLM-L6-v2")
+    assert (path / "model.safetensors").is_file()
+
+
+@pytest.mark.parametrize("name", ["..", ".", "a/b", "../up", "a\\b", ""])
+def test_bundle_names_cannot_escape(name: str) -> None:
+    with pytest.raises(InputError):
+        safe_name(name)
+
+
+@pytest.mark.parametrize("version", ["../../etc", "v1/../../x", "a b"])
+def test_export_version_is_validated(tmp_path: Path, version: str) -> None:
+    with pytest.raises(ConfigError, match="export.version"):
+        load_config(None, [f'export.version="{version}"'])
