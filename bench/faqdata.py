@@ -283,9 +283,6 @@ class SectionParser(HTMLParser):
             self.open[-1].heading_seen = True
         if self._in("heading") and tag == "a" and attrs.get("id") and not self.open[-1].id:
             self.open[-1].id = attrs["id"]
-        if tag == "span" and attrs.get("id") and self.open and not self.open[-1].heading_seen \
-                and not self.open[-1].id:
-            self.open[-1].id = attrs["id"]
         self.stack.append((tag, role))
         if tag in _BLOCK:
             self._data(" ")
@@ -469,7 +466,7 @@ def _mallard_children(el: ET.Element) -> list[ET.Element]:
         elif child.tag == _IF + "if":
             if _if_test(child.get("test", "")):
                 out.extend(_mallard_children(child))
-        elif _if_test(child.get(_IF + "test", "")) if child.get(_IF + "test") else True:
+        elif child.get(_IF + "test") is None or _if_test(child.get(_IF + "test", "")):
             out.append(child)
     return out
 
@@ -525,6 +522,7 @@ class Source:
     pattern: str
     parse: Callable[[Path], list[Pair]]
     exclude: tuple[str, ...] = ()
+    need_qmark: bool = False  # headings without a '?' are topics there, not questions
 
 
 SOURCES: dict[str, Source] = {
@@ -536,6 +534,7 @@ SOURCES: dict[str, Source] = {
     "debian": Source(
         "debian-faq", "usr/share/doc/debian/FAQ", "*.en.html",
         lambda p: parse_html_sections(p, strip_number=True), exclude=("index.en.html",),
+        need_qmark=True,
     ),
     "django": Source(
         "python-django-doc", "usr/share/doc/python-django-doc/html/faq", "*.html",
@@ -555,8 +554,11 @@ assert {k: s.package for k, s in SOURCES.items()} == PACKAGES
 def _run_apt(args: list[str], cwd: Path) -> subprocess.CompletedProcess[str]:
     if shutil.which("apt-get") is None:
         raise FetchError("apt-get is not available (not a Debian-like system)")
-    return subprocess.run(["apt-get", *args], cwd=cwd, capture_output=True, text=True,
-                          timeout=APT_TIMEOUT_S, check=False)
+    try:
+        return subprocess.run(["apt-get", *args], cwd=cwd, capture_output=True, text=True,
+                              timeout=APT_TIMEOUT_S, check=False)
+    except (OSError, subprocess.TimeoutExpired) as e:
+        raise FetchError(f"apt-get {' '.join(args)}: {e}") from e
 
 
 def _deb_version(deb: Path) -> str:
@@ -663,7 +665,7 @@ def build(cache_dir: Path) -> dict:
                 q, a = collapse(pair.question), collapse(pair.answer)
                 if _words(q) < MIN_QUESTION_WORDS or _words(a) < MIN_ANSWER_WORDS:
                     continue
-                if q in seen_q or a in seen_a:
+                if (src.need_qmark and "?" not in q) or q in seen_q or a in seen_a:
                     continue
                 seen_q.add(q)
                 seen_a.add(a)

@@ -1,15 +1,139 @@
-"""Hard-negative mining: a pure function over the base model's ranking.
+"""Hard-negative mining: pure functions over the base model's ranking.
 
-Positive-aware mining (Moreira et al. 2024): candidates scoring above ``max_relative`` times
-the positive's score are likely unlabelled positives and are dropped, as are the positive
-itself and copies of its text. Every dropped candidate is kept with the rule that dropped it.
+For each training query the candidates in the rank window are screened by rules, in order; the
+first rule a candidate breaks drops it and is recorded with it (docs/mining.md):
+
+- ``positive``: the positive itself, or a passage judged relevant to the query;
+- ``same_text``: the positive's text again (whitespace and case aside);
+- ``near_duplicate``: word 3-gram Jaccard with the positive at least ``near_duplicate``;
+- ``same_document``: from the positive's document, when ``exclude_same_doc``;
+- ``above_max_score``: cosine above ``max_score``;
+- ``above_relative_ceiling``: above ``max_relative`` x the positive's score (positive-aware
+  mining, Moreira et al. 2024: 39-47% of naive top-k "negatives" were in fact relevant);
+- ``above_margin_ceiling``: above the positive's score minus ``max_margin`` (the same paper's
+  margin variant);
+- ``rescorer``: a second model rates it at least ``rescorer_threshold`` x the positive (a
+  cross-encoder, or query likelihood under a language model, Sachan et al. 2022).
+
+The survivors are taken best first (``sample = "top"``) or in a seeded random order; the
+re-scorer, when there is one, is asked only about as many as are needed.
 """
 
 from __future__ import annotations
 
+import re
+from collections.abc import Callable, Sequence
+
 import numpy as np
 
 from .config import MineConfig
+
+RULES = (
+    "positive",
+    "same_text",
+    "near_duplicate",
+    "same_document",
+    "above_max_score",
+    "above_relative_ceiling",
+    "above_margin_ceiling",
+    "rescorer",
+)
+
+_WORD = re.compile(r"\w+")
+
+
+def shingles(text: str, n: int = 3) -> frozenset[str]:
+    """Word n-grams of the lowercased text, punctuation ignored (short texts: one shingle)."""
+    words = _WORD.findall(text.lower())
+    if len(words) < n:
+        return frozenset({" ".join(words)})
+    return frozenset(" ".join(words[i : i + n]) for i in range(len(words) - n + 1))
+
+
+def jaccard(a: frozenset[str], b: frozenset[str]) -> float:
+    if not a and not b:
+        return 1.0
+    inter = len(a & b)
+    return inter / (len(a) + len(b) - inter)
+
+
+class LazyShingles:
+    """``shingles(texts[i])``, computed on first use: only candidates in a window need them."""
+
+    def __init__(self, texts: Sequence[str]) -> None:
+        self.texts = texts
+        self._cache: dict[int, frozenset[str]] = {}
+
+    def __getitem__(self, i: int) -> frozenset[str]:
+        got = self._cache.get(i)
+        if got is None:
+            got = self._cache[i] = shingles(self.texts[i])
+        return got
+
+
+def screen(
+    ranked: np.ndarray,
+    scores: np.ndarray,
+    positive: int,
+    positive_score: float,
+    *,
+    doc_of: Sequence[str],
+    text_key: Sequence[str],
+    cfg: MineConfig,
+    shingles_of: Sequence[frozenset[str]] | LazyShingles | None = None,
+    also_relevant: frozenset[int] = frozenset(),
+) -> tuple[list[dict], list[dict]]:
+    """(eligible, dropped) candidates of one query, as ``{"index", "score", "rank"}`` records in
+    rank order; each dropped one carries the first rule it broke (and ``jaccard`` for
+    near-duplicates). Candidates ranked before ``window_start`` are screened but never eligible.
+    """
+    if cfg.near_duplicate > 0 and shingles_of is None:
+        raise ValueError("the near_duplicate rule needs shingles_of")
+    relative = cfg.max_relative * positive_score if cfg.max_relative > 0 else None
+    margin = positive_score - cfg.max_margin if cfg.max_margin > 0 else None
+    absolute = cfg.max_score if cfg.max_score < 1.0 else None
+    pos_sh = shingles_of[positive] if cfg.near_duplicate > 0 and shingles_of is not None else None
+    eligible, dropped = [], []
+    for rank, (i, s) in enumerate(zip(ranked.tolist(), scores.tolist(), strict=True)):
+        if rank >= cfg.window_end:
+            break
+        rule, extra = None, {}
+        if i == positive or i in also_relevant:
+            rule = "positive"
+        elif text_key[i] == text_key[positive]:
+            rule = "same_text"
+        elif pos_sh is not None and shingles_of is not None and (
+            (jac := jaccard(shingles_of[i], pos_sh)) >= cfg.near_duplicate
+        ):
+            rule, extra = "near_duplicate", {"jaccard": round(jac, 4)}
+        elif cfg.exclude_same_doc and doc_of[i] == doc_of[positive]:
+            rule = "same_document"
+        elif absolute is not None and s > absolute:
+            rule = "above_max_score"
+        elif relative is not None and s > relative:
+            rule = "above_relative_ceiling"
+        elif margin is not None and s > margin:
+            rule = "above_margin_ceiling"
+        if rule is not None:
+            dropped.append({"index": i, "score": s, "rank": rank, "rule": rule} | extra)
+        elif rank >= cfg.window_start:
+            eligible.append({"index": i, "score": s, "rank": rank})
+    return eligible, dropped
+
+
+def sampling_order(
+    eligible: list[dict], negatives: int, sample: str, rng: np.random.Generator
+) -> list[dict]:
+    """The order candidates are taken in: rank order for ``top`` (or when all are needed),
+    else a uniformly random permutation drawn from ``rng``."""
+    if sample == "top" or len(eligible) <= negatives:
+        return list(eligible)
+    return [eligible[j] for j in rng.permutation(len(eligible))]
+
+
+def take(order: list[dict], negatives: int) -> list[dict]:
+    """The first ``negatives`` of a sampling order, back in rank order."""
+    return sorted(order[:negatives], key=lambda c: c["rank"])
 
 
 def mine_one(
@@ -18,34 +142,71 @@ def mine_one(
     positive: int,
     positive_score: float,
     *,
-    doc_of: list[str],
-    text_key: list[str],
+    doc_of: Sequence[str],
+    text_key: Sequence[str],
     cfg: MineConfig,
     rng: np.random.Generator,
+    shingles_of: Sequence[frozenset[str]] | LazyShingles | None = None,
     also_relevant: frozenset[int] = frozenset(),
 ) -> tuple[list[dict], list[dict]]:
-    """Negatives and dropped candidates for one query, as (index, score, rank) records."""
-    ceiling = cfg.max_relative * positive_score
-    kept, dropped = [], []
-    for rank, (i, s) in enumerate(zip(ranked.tolist(), scores.tolist(), strict=True)):
-        if rank >= cfg.window_end:
+    """Negatives and dropped candidates for one query, without a re-scorer."""
+    eligible, dropped = screen(
+        ranked,
+        scores,
+        positive,
+        positive_score,
+        doc_of=doc_of,
+        text_key=text_key,
+        cfg=cfg,
+        shingles_of=shingles_of,
+        also_relevant=also_relevant,
+    )
+    return take(sampling_order(eligible, cfg.negatives, cfg.sample, rng), cfg.negatives), dropped
+
+
+Rescore = Callable[[list[tuple[int, int]]], np.ndarray]
+
+
+def second_opinion(
+    orders: list[list[dict]],
+    negatives: int,
+    rescore: Rescore,
+    positive_rescores: Sequence[float],
+    threshold: float,
+) -> tuple[list[list[dict]], list[list[dict]], int]:
+    """Ask the re-scorer about candidates in sampling order until each query has
+    ``negatives`` it does not rate at least ``threshold`` x its positive, or none are left.
+
+    ``rescore`` takes ``(query index, candidate index)`` pairs and returns one score each on a
+    0..1 scale, higher meaning more relevant. All queries' pairs of a round go in one call.
+    Returns (chosen per query in rank order, dropped per query with rule ``rescorer``, pairs
+    scored); every rescored record gains ``rescore``.
+    """
+    nq = len(orders)
+    chosen: list[list[dict]] = [[] for _ in range(nq)]
+    dropped: list[list[dict]] = [[] for _ in range(nq)]
+    cursor = [0] * nq
+    scored = 0
+    while True:
+        batch: list[tuple[int, dict]] = []
+        for qi in range(nq):
+            need = negatives - len(chosen[qi])
+            if need <= 0:
+                continue
+            nxt = orders[qi][cursor[qi] : cursor[qi] + need]
+            cursor[qi] += len(nxt)
+            batch.extend((qi, c) for c in nxt)
+        if not batch:
             break
-        rule = None
-        if i == positive or i in also_relevant:
-            rule = "positive"
-        elif text_key[i] == text_key[positive]:
-            rule = "same_text"
-        elif cfg.exclude_same_doc and doc_of[i] == doc_of[positive]:
-            rule = "same_document"
-        elif s > ceiling:
-            rule = "above_relative_ceiling"
-        if rule is not None:
-            dropped.append({"index": i, "score": s, "rank": rank, "rule": rule})
-        elif rank >= cfg.window_start:
-            kept.append({"index": i, "score": s, "rank": rank})
-    if cfg.sample == "top" or len(kept) <= cfg.negatives:
-        chosen = kept[: cfg.negatives]
-    else:
-        pick = np.sort(rng.choice(len(kept), size=cfg.negatives, replace=False))
-        chosen = [kept[j] for j in pick]
-    return chosen, dropped
+        values = np.asarray(rescore([(qi, c["index"]) for qi, c in batch]), dtype=np.float64)
+        scored += len(batch)
+        for (qi, c), v in zip(batch, values.tolist(), strict=True):
+            rec = c | {"rescore": round(v, 6)}
+            if v >= threshold * positive_rescores[qi]:
+                dropped[qi].append(rec | {"rule": "rescorer"})
+            else:
+                chosen[qi].append(rec)
+    for qi in range(nq):
+        chosen[qi].sort(key=lambda c: c["rank"])
+        dropped[qi].sort(key=lambda c: c["rank"])
+    return chosen, dropped, scored

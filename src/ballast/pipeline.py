@@ -17,7 +17,7 @@ from .export import library_versions
 from .files import fingerprint_obj, fingerprint_tree, write_json
 from .stages import STAGE_FUNCS, Run
 
-ORDER = ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "export")
+ORDER = ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "report", "export")
 
 
 @dataclass(frozen=True)
@@ -57,6 +57,22 @@ SPECS = {
         True,
     ),
     "gate": StageSpec("gate", ("gate",), ("metrics.json",), ("gate.json",)),
+    "report": StageSpec(
+        "report",
+        ("name", "guard"),
+        (
+            "metrics.json",
+            "per_query.csv",
+            "runs",
+            "qrels",
+            "gate.json",
+            "train.json",
+            "queries.jsonl",
+            "passages.jsonl",
+            *(f"{s}.done.json" for s in ("ingest", "synth", "split", "mine", "train")),
+        ),
+        ("report.html", "report.md"),
+    ),
     "export": StageSpec("export", ("export", "name"), ("model", "gate.json", "metrics.json"), ()),
 }
 

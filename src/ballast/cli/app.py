@@ -116,6 +116,7 @@ for _name, _doc in [
     ("mine", "Mine hard negatives for the training pairs with the base model (negatives.jsonl)."),
     ("train", "Fine-tune the base model on the training pairs (model/)."),
     ("gate", "Decide whether the tuned model ships (gate.json); exit 1 if it does not."),
+    ("report", "Write report.html (charts, examples, verdict) and report.md for the run."),
     ("export", "Write the versioned bundle with its manifest for the index builder."),
 ]:
     _make_stage_command(_name, _doc)

@@ -11,6 +11,7 @@ from .export import export
 from .gate import gate
 from .ingest import ingest
 from .mine import mine
+from .report import report
 from .run import Run
 from .split import split
 from .synth import synth
@@ -24,6 +25,7 @@ STAGE_FUNCS = {
     "train": train,
     "evaluate": evaluate,
     "gate": gate,
+    "report": report,
     "export": export,
 }
 
