@@ -76,6 +76,21 @@ def atomic_dir(path: str | Path) -> Iterator[Path]:
         raise
 
 
+def remove_stale_temps(folder: str | Path, name: str) -> int:
+    """Remove the temp files and folders that a killed writer of ``name`` left in ``folder``
+    (``.NAME.*.tmp`` from the atomic writers, ``.NAME.old`` from a folder swap)."""
+    removed = 0
+    folder = Path(folder)
+    for p in [*folder.glob(f".{name}.*.tmp"), folder / f".{name}.old"]:
+        if p.is_dir():
+            shutil.rmtree(p, ignore_errors=True)
+            removed += 1
+        elif p.exists():
+            p.unlink(missing_ok=True)
+            removed += 1
+    return removed
+
+
 def read_text(path: str | Path) -> str:
     """Read UTF-8 text; a bad byte is an InputError naming the file, line and byte offset."""
     path = Path(path)

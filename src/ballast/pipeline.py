@@ -14,7 +14,7 @@ from typing import Any
 
 from . import __version__
 from .export import library_versions
-from .files import fingerprint_obj, fingerprint_tree, write_json
+from .files import fingerprint_obj, fingerprint_tree, remove_stale_temps, write_json
 from .stages import STAGE_FUNCS, Run
 
 ORDER = ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "report", "export")
@@ -39,7 +39,7 @@ SPECS = {
         "mine",
         ("mine", "seed", "train.max_seq_length", "evaluate.batch_size"),
         ("passages.jsonl", "queries.jsonl", "splits.json"),
-        ("negatives.jsonl",),
+        ("negatives.jsonl", "negatives_sample.md"),
         True,
     ),
     "train": StageSpec(
@@ -100,6 +100,13 @@ def external_inputs(run: Run, stage: str) -> dict[str, str]:
     if stage == "synth" and run.cfg.synth.questions:
         q = Path(run.cfg.synth.questions)
         out["questions"] = fingerprint_tree(q) if q.exists() else "missing"
+    if stage == "synth":
+        from .synth.generate import outside_inputs
+
+        out |= outside_inputs(run)
+    if stage == "mine" and run.cfg.mine.rescorer_model:
+        r = Path(run.cfg.mine.rescorer_model)
+        out["rescorer_model"] = fingerprint_tree(r) if r.exists() else str(r)  # or packaged:
     if SPECS[stage].base_model:
         out["base_model"] = run.base_fp
     return out
@@ -151,6 +158,8 @@ def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str
             return {"stage": stage, "skipped": True, "summary": done["summary"]}
     run.dir.mkdir(parents=True, exist_ok=True)
     done_path(run, stage).unlink(missing_ok=True)
+    for out in SPECS[stage].outputs:  # what a killed run of this stage left half-built
+        remove_stale_temps(run.dir, Path(out).name)
     write_json(run.path("config.json"), run.cfg.to_dict())
     started = time.perf_counter()
     summary = STAGE_FUNCS[stage](run)
