@@ -7,8 +7,8 @@ allowed. Paths in a config file are relative to the folder of that file.
 from __future__ import annotations
 
 import dataclasses
-import os
 import difflib
+import os
 import tomllib
 import typing
 from dataclasses import dataclass, field
@@ -80,17 +80,89 @@ class SynthConfig:
     keywords_min_terms: int = 2
     keywords_max_terms: int = 4
     questions: str = ""
+    # model-written queries: "llm" (a local model) and "http" (a chat-completions endpoint)
+    prompts: str = ""
+    styles: tuple[str, ...] = ("question", "keywords", "troubleshooting")
+    llm_per_passage: int = 1
+    llm_model: str = "packaged:gemma-3-270m"
+    llm_batch_size: int = 4
+    llm_max_new_tokens: int = 32
+    llm_temperature: float = 0.7
+    http_base_url: str = ""
+    http_model: str = ""
+    http_api_key_env: str = ""
+    http_concurrency: int = 4
+    http_timeout_s: float = 60.0
+    http_retries: int = 3
+    http_backoff_s: float = 1.0
+    # filters of model-written queries; round_trip_k judges every generated query (0 = off)
+    min_words: int = 2
+    max_words: int = 32
+    copy_overlap: float = 0.75
+    round_trip_k: int = 0
 
     def __post_init__(self) -> None:
         for g in self.generators:
-            if g not in ("ict", "keywords", "headings"):
-                _fail("synth.generators", g, "a list drawn from 'ict', 'keywords', 'headings'")
+            if g not in ("ict", "keywords", "headings", "llm", "http"):
+                _fail(
+                    "synth.generators",
+                    g,
+                    "a list drawn from 'ict', 'keywords', 'headings', 'llm', 'http'",
+                )
+        _check_model_synth(self)
         _range("synth.ict_per_passage", self.ict_per_passage, 0, 20)
         _range("synth.ict_remove_prob", self.ict_remove_prob, 0.0, 1.0)
         _range("synth.ict_min_words", self.ict_min_words, 1, 100)
         _range("synth.keywords_per_passage", self.keywords_per_passage, 0, 20)
         _range("synth.keywords_min_terms", self.keywords_min_terms, 1, 20)
         _range("synth.keywords_max_terms", self.keywords_max_terms, self.keywords_min_terms, 20)
+
+
+def _check_model_synth(c: SynthConfig) -> None:
+    """The settings of the model-written generators and their filters."""
+    import re
+    import urllib.parse
+
+    if not c.styles:
+        _fail("synth.styles", [], "at least one style, like 'question'")
+    for st in c.styles:
+        if not re.fullmatch(r"[A-Za-z0-9_-]+", st):
+            _fail("synth.styles", st, "style names of letters, digits, '_' or '-' (file names)")
+    _range("synth.llm_per_passage", c.llm_per_passage, 0, 20)
+    _range("synth.llm_batch_size", c.llm_batch_size, 1, 256)
+    _range("synth.llm_max_new_tokens", c.llm_max_new_tokens, 4, 512)
+    _range("synth.llm_temperature", c.llm_temperature, 0.0, 2.0)
+    _range("synth.http_concurrency", c.http_concurrency, 1, 64)
+    _range("synth.http_timeout_s", c.http_timeout_s, 0.0, 3600.0, lo_open=True)
+    _range("synth.http_retries", c.http_retries, 0, 10)
+    _range("synth.http_backoff_s", c.http_backoff_s, 0.0, 60.0)
+    _range("synth.min_words", c.min_words, 1, 100)
+    _range("synth.max_words", c.max_words, c.min_words, 1000)
+    _range("synth.copy_overlap", c.copy_overlap, 0.0, 1.0, lo_open=True)
+    _range("synth.round_trip_k", c.round_trip_k, 0, 10_000)
+    # Neither message below repeats the value: it may be a secret put in the wrong place.
+    env_name = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,63}")
+    if c.http_api_key_env and not env_name.fullmatch(c.http_api_key_env):
+        raise ConfigError(
+            "expected the NAME of an environment variable that holds the API key (letters, "
+            "digits, '_'), never the key itself",
+            key="synth.http_api_key_env",
+        )
+    if c.http_base_url:
+        parts = urllib.parse.urlsplit(c.http_base_url)
+        if parts.username or parts.password or parts.query:
+            raise ConfigError(
+                "expected a URL without user name, password or query; put the API key in an "
+                "environment variable and name it in synth.http_api_key_env",
+                key="synth.http_base_url",
+            )
+        if parts.scheme not in ("http", "https") or not parts.hostname:
+            _fail("synth.http_base_url", c.http_base_url, "a URL like 'http://127.0.0.1:8080/v1'")
+    if "http" in c.generators:
+        if not c.http_base_url:
+            _fail("synth.http_base_url", "", "the endpoint's base URL when 'http' is a generator")
+        if not c.http_model:
+            _fail("synth.http_model", "", "the model name to ask for when 'http' is a generator")
 
 
 @dataclass(frozen=True)
@@ -122,7 +194,8 @@ class MineConfig:
     max_relative: float = 0.95
     max_margin: float = 0.0
     max_score: float = 1.0
-    near_duplicate: float = 0.6
+    ceiling_reference: str = "passage"
+    near_duplicate: float = 0.5
     sample: str = "random"
     exclude_same_doc: bool = False
     rescorer: str = ""
@@ -139,6 +212,8 @@ class MineConfig:
             _fail("mine.max_relative", self.max_relative, "0 (off) or a number in (0, 1]")
         _range("mine.max_margin", self.max_margin, 0.0, 2.0)
         _range("mine.max_score", self.max_score, -1.0, 1.0, lo_open=True)
+        if self.ceiling_reference not in ("passage", "training"):
+            _fail("mine.ceiling_reference", self.ceiling_reference, "'passage' or 'training'")
         _range("mine.near_duplicate", self.near_duplicate, 0.0, 1.0)
         if self.sample not in ("random", "top"):
             _fail("mine.sample", self.sample, "'random' or 'top'")
@@ -242,9 +317,8 @@ class GateConfig:
             _fail("gate.splits", list(self.splits), "at least one split")
         for s in self.splits:
             if s not in GATE_SPLITS:
-                _fail(
-                    "gate.splits", s, f"a list drawn from {', '.join(GATE_SPLITS)} (dev is never gated)"
-                )
+                allowed = ", ".join(GATE_SPLITS)
+                _fail("gate.splits", s, f"a list drawn from {allowed} (dev is never gated)")
         if not any(s != "guard" for s in self.splits):
             _fail(
                 "gate.splits", list(self.splits), "at least one of 'test', 'human' besides 'guard'"
@@ -263,6 +337,8 @@ class GateConfig:
 class ExportConfig:
     dir: str = ""
     version: str = ""
+    onnx: bool = False  # also write model.onnx (pooling and normalisation in the graph)
+    quantize_int8: bool = False  # also write model_int8.onnx (implies onnx), cost measured
 
     def __post_init__(self) -> None:
         if self.version and not all(c.isalnum() or c in "._-" for c in self.version):
@@ -335,6 +411,8 @@ PATH_KEYS = {
     ("guard", "passages"),
     ("ingest", "docs"),
     ("synth", "questions"),
+    ("synth", "prompts"),
+    ("synth", "llm_model"),
     ("mine", "rescorer_model"),
     ("", "run_dir"),
     ("", "base_model"),

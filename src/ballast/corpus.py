@@ -376,7 +376,9 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
             lens = count(sentences)
             flat, flat_lens = [], []
             for s, n in zip(sentences, lens, strict=True):
-                parts = [s] if n <= cfg.max_tokens else _split_long(s, cfg.max_tokens, count)
+                # a sentence longer than a passage is cut in halves-of-a-passage, so its first
+                # piece can still share a passage with the sentence before it
+                parts = [s] if n <= cfg.max_tokens else _split_long(s, cfg.max_tokens // 2, count)
                 flat.extend(parts)
                 flat_lens.extend([n] if len(parts) == 1 else count(parts))
             for idxs in chunk_sentences(flat, flat_lens, cfg.max_tokens, cfg.overlap_tokens):

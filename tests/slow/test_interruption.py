@@ -18,8 +18,9 @@ from tests.conftest import DEMO, write_config
 
 pytestmark = pytest.mark.slow
 
-TINY = {"train": "batch_size = 8\nmax_seq_length = 64\nepochs = 4", "evaluate": "bootstrap_resamples = 500",
-        "gate": "min_queries = 2", "ingest": "max_tokens = 64\noverlap_tokens = 8"}
+TINY = {"train": "batch_size = 8\nmax_seq_length = 64\nepochs = 4",
+        "evaluate": "bootstrap_resamples = 500", "gate": "min_queries = 2",
+        "ingest": "max_tokens = 64\noverlap_tokens = 8"}
 # (stage to interrupt, the file whose appearance says it has started, seconds to wait after)
 # (a glob: the model folder is built under a temporary name while training runs)
 KILLS = [("ingest", None, 4.0), ("mine", "split.done.json", 3.0),

@@ -75,9 +75,17 @@ def import_questions(path: str | Path, passages: list[dict]) -> list[dict]:
 def locate(quote: str, passages: list[dict]) -> list[str]:
     """Passages holding the quote; else the one holding most of it (a quote cut by a chunk edge)."""
     q = collapse(quote).lower()
-    hits = [p["id"] for p in passages if q in collapse(p["text"]).lower()]
+    texts = [collapse(p["text"]).lower() for p in passages]
+    hits = [p["id"] for p, t in zip(passages, texts, strict=True) if q in t]
     if hits:
         return hits
+    words = q.split()
+    for k in range(1, len(words)):  # the quote runs from the end of one passage into the next
+        head, tail = " ".join(words[:k]), " ".join(words[k:])
+        ends = [p["id"] for p, t in zip(passages, texts, strict=True) if t.endswith(head)]
+        starts = [p["id"] for p, t in zip(passages, texts, strict=True) if t.startswith(tail)]
+        if ends and starts:
+            return sorted(set(ends + starts), key=[p["id"] for p in passages].index)
     best, best_len = None, 0
     for p in passages:
         t = collapse(p["text"]).lower()
