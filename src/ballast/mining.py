@@ -102,8 +102,10 @@ def screen(
             rule = "positive"
         elif text_key[i] == text_key[positive]:
             rule = "same_text"
-        elif pos_sh is not None and shingles_of is not None and (
-            (jac := jaccard(shingles_of[i], pos_sh)) >= cfg.near_duplicate
+        elif (
+            pos_sh is not None
+            and shingles_of is not None
+            and ((jac := jaccard(shingles_of[i], pos_sh)) >= cfg.near_duplicate)
         ):
             rule, extra = "near_duplicate", {"jaccard": round(jac, 4)}
         elif cfg.exclude_same_doc and doc_of[i] == doc_of[positive]:

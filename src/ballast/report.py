@@ -111,9 +111,7 @@ def _per_query_values(inp: ReportInputs, split: str, model: str, metric: str) ->
 def _diffs(inp: ReportInputs, split: str, metric: str) -> list[tuple[str, float]]:
     base = _per_query_values(inp, split, BASE, metric)
     tuned = _per_query_values(inp, split, TUNED, metric)
-    return sorted(
-        ((q, tuned[q] - base[q]) for q in base if q in tuned), key=lambda x: (x[1], x[0])
-    )
+    return sorted(((q, tuned[q] - base[q]) for q in base if q in tuned), key=lambda x: (x[1], x[0]))
 
 
 def _gate_words(gate: dict[str, Any] | None) -> list[str]:
@@ -138,26 +136,27 @@ def _gate_words(gate: dict[str, Any] | None) -> list[str]:
     return lines
 
 
+def _flatten(prefix: str, obj: Any) -> list[tuple[str, str]]:
+    """Nested summary dicts as ("a.b", "value") rows, keys sorted."""
+    if isinstance(obj, dict):
+        rows = []
+        for k in sorted(obj):
+            sub = f"{prefix}{k}." if isinstance(obj[k], dict) else f"{prefix}{k}"
+            rows += _flatten(sub, obj[k])
+        return rows
+    if isinstance(obj, list):
+        return [(prefix, ", ".join(str(x) for x in obj) or "none")]
+    return [(prefix, "none" if obj is None else str(obj))]
+
+
 def _counts(inp: ReportInputs) -> list[tuple[str, list[tuple[str, str]]]]:
     """Synthesis, filtering and mining counts, flattened from the stages' summaries."""
     out = []
     for stage in ("ingest", "synth", "split", "mine", "train"):
         summary = inp.stages.get(stage)
-        if not summary:
-            continue
-        rows: list[tuple[str, str]] = []
-
-        def walk(prefix: str, obj: Any) -> None:
-            if isinstance(obj, dict):
-                for k in sorted(obj):
-                    walk(f"{prefix}{k}." if isinstance(obj[k], dict) else f"{prefix}{k}", obj[k])
-            elif isinstance(obj, list):
-                rows.append((prefix, ", ".join(str(x) for x in obj) or "none"))
-            else:
-                rows.append((prefix, "none" if obj is None else str(obj)))
-
-        walk("", {k: v for k, v in summary.items() if k != "loss_history"})
-        out.append((stage, rows))
+        if summary:
+            rows = _flatten("", {k: v for k, v in summary.items() if k != "loss_history"})
+            out.append((stage, rows))
     return out
 
 
@@ -467,9 +466,7 @@ def _metric_table(info: dict[str, Any], metrics: list[str], pct: str) -> str:
         b = info["models"].get(BASE, {}).get(m, {}).get("mean")
         t = info["models"].get(TUNED, {}).get(m, {}).get("mean")
         c = comp.get(m, {})
-        ci = (
-            f"[{_num(c.get('ci_low'), '+.4f')}, {_num(c.get('ci_high'), '+.4f')}]" if c else "–"
-        )
+        ci = f"[{_num(c.get('ci_low'), '+.4f')}, {_num(c.get('ci_high'), '+.4f')}]" if c else "–"
         wlt = f"{c['wins']} / {c['losses']} / {c['ties']}" if c else "–"
         rows.append(
             f"<tr><td class=l>{E(m)}</td><td>{_num(b)}</td><td>{_num(t)}</td>"
@@ -585,6 +582,7 @@ def render_html(inp: ReportInputs) -> str:
         ks = [float(k) for k in range(1, len(cv[BASE]["recall"]) + 1)]
         low = min(v for m in (BASE, TUNED) for key in ("recall", "ndcg") for v in cv[m][key])
         y_range = (max(0.0, math.floor(low * 10) / 10), 1.0)
+        title = f"{s}: recall and nDCG against k"
         series = [
             ("base recall", COLOURS[BASE], ks, cv[BASE]["recall"]),
             ("tuned recall", COLOURS[TUNED], ks, cv[TUNED]["recall"]),
@@ -592,7 +590,7 @@ def render_html(inp: ReportInputs) -> str:
             ("tuned nDCG", COLOURS[TUNED], ks, cv[TUNED]["ndcg"]),
         ]
         out.append(
-            f"<figure>{lines_svg(series, f'{s}: metric against k', 'k', y_range=y_range, dashed=DASHED)}"
+            f"<figure>{lines_svg(series, title, 'k', y_range=y_range, dashed=DASHED)}"
             f"<figcaption>split {E(s)}: recall@k (solid), nDCG@k (dashed)</figcaption></figure>"
         )
     if not any_curve:
@@ -625,10 +623,12 @@ def render_html(inp: ReportInputs) -> str:
     counts = _counts(inp)
     if not counts:
         out.append('<p class="muted">No stage summaries found.</p>')
+    out.append("<div class=charts>")
     for stage, rows in counts:
-        out.append(f"<h3>{E(stage)}</h3><table>")
+        out.append(f"<div><h3>{E(stage)}</h3><table>")
         out.extend(f"<tr><td class=l>{E(k)}</td><td>{E(v)}</td></tr>" for k, v in rows)
-        out.append("</table>")
+        out.append("</table></div>")
+    out.append("</div>")
 
     out.append("<h2>Training loss</h2>")
     hist = (inp.train or {}).get("loss_history") or []

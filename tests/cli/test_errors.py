@@ -22,7 +22,7 @@ def test_help_lists_every_stage() -> None:
     r = invoke("--help")
     assert r.exit_code == 0
     for cmd in ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "export",
-                "run", "demo", "init"):
+                "run", "demo", "init", "report", "embed", "verify"):
         assert cmd in r.output
 
 

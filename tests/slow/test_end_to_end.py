@@ -57,9 +57,10 @@ def test_run_writes_every_stage(two_runs) -> None:
     run = root / "run"
     verdict = json.loads((run / "gate.json").read_text("utf-8"))
     assert proc.returncode == (0 if verdict["passed"] else 1), proc.stderr
-    for stage in ("ingest", "synth", "split", "mine", "train", "evaluate", "gate"):
+    for stage in ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "report"):
         done = json.loads((run / f"{stage}.done.json").read_text("utf-8"))
         assert done["stage"] == stage and done["fingerprint"]
+    assert "<svg" in (run / "report.html").read_text("utf-8") and (run / "report.md").is_file()
     metrics = json.loads((run / "metrics.json").read_text("utf-8"))
     assert set(metrics["splits"]) <= {"dev", "test", "human"} and "test" in metrics["splits"]
     assert "ndcg@10" in proc.stdout and "gate:" in proc.stdout
@@ -86,7 +87,7 @@ def test_second_run_skips_unchanged_stages(two_runs) -> None:
     assert proc.returncode == first.returncode
     doc = json.loads(proc.stdout)
     skipped = {s["stage"] for s in doc["stages"] if s["skipped"]}
-    assert {"ingest", "synth", "split", "mine", "train", "evaluate", "gate"} <= skipped
+    assert {"ingest", "synth", "split", "mine", "train", "evaluate", "gate", "report"} <= skipped
 
 
 def test_changed_setting_reruns_from_that_stage(two_runs) -> None:
@@ -95,7 +96,7 @@ def test_changed_setting_reruns_from_that_stage(two_runs) -> None:
     assert proc.returncode == 1  # no model gains half a point of nDCG@10 here
     doc = json.loads(proc.stdout)
     ran = {s["stage"] for s in doc["stages"] if not s["skipped"]}
-    assert ran == {"gate"}
+    assert ran == {"gate", "report"}  # the report shows the new verdict
     assert "less than the required +0.5000" in json.dumps(doc["gate"])
 
 

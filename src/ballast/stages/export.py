@@ -100,5 +100,22 @@ def export(run: Run) -> dict[str, Any]:
     }
     with atomic_dir(target) as tmp:
         copy_model(model_dir, tmp)
+        from ..verify import files_hash, verification_sample
+
+        run.progress.info("export: embedding the verification sample")
+        manifest["verification"] = verification_sample(tmp)
+        manifest["onnx"] = None
+        if run.cfg.export.onnx or run.cfg.export.quantize_int8:
+            from .export_onnx import bundle_onnx
+
+            manifest["onnx"] = bundle_onnx(run, tmp, quantize=run.cfg.export.quantize_int8)
+        manifest["files_sha256"] = files_hash(tmp)
         write_json(tmp / "manifest.json", manifest)
-    return {"bundle": str(target), "version": version, "forced": manifest["gate"]["forced"]}
+    onnx = manifest["onnx"]
+    return {
+        "bundle": str(target),
+        "version": version,
+        "forced": manifest["gate"]["forced"],
+        "onnx": bool(onnx),
+        "int8": bool(onnx and onnx["int8"]),
+    }

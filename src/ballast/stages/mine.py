@@ -1,16 +1,25 @@
-"""Stage mine: hard negatives for the training pairs -> negatives.jsonl."""
+"""Stage mine: hard negatives for the training pairs -> negatives.jsonl, negatives_sample.md.
+
+negatives.jsonl keeps, per training query, the chosen negatives and every dropped candidate
+with the rule that dropped it; negatives_sample.md shows a seeded sample of queries with the
+texts of their kept and dropped candidates, for a person to read.
+"""
 
 from __future__ import annotations
 
+import time
 from typing import Any
 
 import numpy as np
 
-from ..files import (
-    write_jsonl,
-)
+from ..errors import StageError
+from ..files import write_jsonl, write_text_atomic
 from ..synth.extractive import training_positive
 from .run import Run
+
+AUDIT_QUERIES = 20
+AUDIT_CHARS = 300
+AUDIT_SHOWN = 8  # dropped candidates shown per query, best ranked first
 
 
 def _base_corpus_embeddings(run: Run, model: Any, passages: list[dict]) -> np.ndarray:
@@ -27,12 +36,20 @@ def _base_corpus_embeddings(run: Run, model: Any, passages: list[dict]) -> np.nd
     )
 
 
+def _rec(tp: list[dict], c: dict) -> dict:
+    out = {"id": tp[c["index"]]["id"], "score": round(c["score"], 6), "rank": c["rank"]}
+    for k in ("rule", "jaccard", "rescore"):
+        if k in c:
+            out[k] = c[k]
+    return out
+
+
 def mine(run: Run) -> dict[str, Any]:
     from ..corpus import collapse
     from ..encode import encode
-    from ..mining import mine_one
+    from ..mining import RULES, LazyShingles, sampling_order, screen, take
     from ..models import load_encoder
-    from ..search import top_k
+    from ..search import search
 
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     train_docs = set(splits["documents"]["train"])
@@ -53,26 +70,54 @@ def mine(run: Run) -> dict[str, Any]:
         label="encoding training queries",
         progress=run.progress,
     )
-    pos_texts = [training_positive(q, by_pid[q["passage_id"]]) for q in qs]
-    pos_emb = encode(
-        model,
-        pos_texts,
-        batch_size=run.cfg.evaluate.batch_size,
-        label="encoding training positives",
-        progress=run.progress,
-    )
+    # The positive's score the ceilings compare with: by default the positive passage as it
+    # stands in the corpus, scored like every candidate; or the text the pair trains on (for a
+    # masked inverse-cloze query, the passage without the query sentence: a lower score).
+    if cfg.ceiling_reference == "training":
+        pos_texts = [training_positive(q, by_pid[q["passage_id"]]) for q in qs]
+        pos_emb = encode(
+            model,
+            pos_texts,
+            batch_size=run.cfg.evaluate.batch_size,
+            label="encoding training positives",
+            progress=run.progress,
+        )
+    else:
+        pos_texts = [by_pid[q["passage_id"]]["text"] for q in qs]
+        pos_emb = t_emb[[pos_of[q["passage_id"]] for q in qs]].reshape(len(qs), t_emb.shape[1])
     pos_scores = np.einsum("ij,ij->i", q_emb, pos_emb)
-    rows, counts = [], {"kept": 0}
     rng = run.rng("mine")
-    if cfg.negatives and qs:
-        idx, sc = top_k(q_emb, t_emb, cfg.window_end, [p["id"] for p in tp])
+    audit_rng = rng.spawn(1)[0]  # its own stream: the sample never changes the negatives
+    chosen: list[list[dict]] = [[] for _ in qs]
+    dropped: list[list[dict]] = [[] for _ in qs]
+    summary: dict[str, Any] = {}
+    if cfg.negatives and qs and tp:
+        started = time.perf_counter()
+        try:
+            idx, sc, engine = search(
+                q_emb,
+                t_emb,
+                cfg.window_end,
+                [p["id"] for p in tp],
+                method=cfg.search,
+                faiss_above=cfg.faiss_above,
+            )
+        except ImportError as exc:
+            raise StageError(f"mine.search = {cfg.search!r}: {exc}") from None
+        summary["search"] = {
+            "engine": engine,
+            "passages": len(tp),
+            "seconds": round(time.perf_counter() - started, 3),
+        }
         doc_of = [p["doc_id"] for p in tp]
         text_key = [collapse(p["text"]).lower() for p in tp]
+        sh = LazyShingles([p["text"] for p in tp])
+        orders = []
         for qi, q in enumerate(qs):
             judged = frozenset(
                 pos_of[r] for r in q.get("meta", {}).get("relevant", ()) if r in pos_of
             )
-            chosen, dropped = mine_one(
+            eligible, dropped[qi] = screen(
                 idx[qi],
                 sc[qi],
                 pos_of[q["passage_id"]],
@@ -80,45 +125,141 @@ def mine(run: Run) -> dict[str, Any]:
                 doc_of=doc_of,
                 text_key=text_key,
                 cfg=cfg,
-                rng=rng,
+                shingles_of=sh,
                 also_relevant=judged,
             )
-            counts["kept"] += len(chosen)
-            for d in dropped:
-                counts[d["rule"]] = counts.get(d["rule"], 0) + 1
-
-            def rec(c):
-                return {
-                    "id": tp[c["index"]]["id"],
-                    "score": round(c["score"], 6),  # noqa: E731
-                    "rank": c["rank"],
-                }
-
-            rows.append(
-                {
-                    "query_id": q["id"],
-                    "positive_id": q["passage_id"],
-                    "positive_score": round(float(pos_scores[qi]), 6),
-                    "negatives": [rec(c) for c in chosen],
-                    "dropped": [rec(d) | {"rule": d["rule"]} for d in dropped],
-                }
-            )
-    else:
-        rows = [
-            {
-                "query_id": q["id"],
-                "positive_id": q["passage_id"],
-                "positive_score": round(float(pos_scores[i]), 6),
-                "negatives": [],
-                "dropped": [],
-            }
-            for i, q in enumerate(qs)
-        ]
+            orders.append(sampling_order(eligible, cfg.negatives, cfg.sample, rng))
+        if cfg.rescorer:
+            chosen, extra, summary["rescorer"] = _second_opinion(run, qs, pos_texts, tp, orders)
+            for qi, more in enumerate(extra):
+                dropped[qi] = sorted(dropped[qi] + more, key=lambda c: c["rank"])
+        else:
+            chosen = [take(o, cfg.negatives) for o in orders]
+    counts = {r: 0 for r in RULES if r != "rescorer" or cfg.rescorer}
+    for ds in dropped:
+        for d in ds:
+            counts[d["rule"]] += 1
+    rows = [
+        {
+            "query_id": q["id"],
+            "positive_id": q["passage_id"],
+            "positive_score": round(float(pos_scores[qi]), 6),
+            "negatives": [_rec(tp, c) for c in chosen[qi]],
+            "dropped": [_rec(tp, d) for d in dropped[qi]],
+        }
+        for qi, q in enumerate(qs)
+    ]
     write_jsonl(run.path("negatives.jsonl"), rows)
-    short = sum(1 for r in rows if len(r["negatives"]) < cfg.negatives)
+    write_text_atomic(
+        run.path("negatives_sample.md"),
+        audit_markdown(rows, qs, pos_texts, {p["id"]: p for p in tp}, counts, audit_rng),
+    )
+    kept = sum(len(r["negatives"]) for r in rows)
+    run.progress.info(
+        f"mine: {kept} negatives kept; dropped " + ", ".join(f"{k} {v}" for k, v in counts.items())
+    )
     return {
         "queries": len(rows),
-        "negatives": counts.pop("kept"),
+        "negatives": kept,
         "dropped_by_rule": counts,
-        "queries_short_of_negatives": short,
-    }
+        "queries_short_of_negatives": sum(1 for r in rows if len(r["negatives"]) < cfg.negatives),
+        "ceiling_reference": cfg.ceiling_reference,
+    } | summary
+
+
+def _second_opinion(
+    run: Run, qs: list[dict], pos_texts: list[str], tp: list[dict], orders: list[list[dict]]
+) -> tuple[list[list[dict]], list[list[dict]], dict[str, Any]]:
+    from ..mining import second_opinion
+    from ..rescore import Cost, Timed, load_rescorer
+
+    cfg = run.cfg.mine
+    started = time.perf_counter()
+    cost = Cost(cfg.rescorer)
+    rescorer = Timed(load_rescorer(cfg.rescorer, cfg.rescorer_model, run.progress), cost)
+    cost.load_seconds = time.perf_counter() - started
+    asked = [qi for qi, o in enumerate(orders) if o]
+    pos_rescore = np.zeros(len(qs))
+    if asked:
+        got = rescorer.score([(qs[qi]["text"], pos_texts[qi]) for qi in asked], run.progress)
+        pos_rescore[asked] = got
+
+    def rescore(pairs: list[tuple[int, int]]) -> np.ndarray:
+        return rescorer.score([(qs[qi]["text"], tp[pi]["text"]) for qi, pi in pairs], run.progress)
+
+    chosen, dropped, _ = second_opinion(
+        orders, cfg.negatives, rescore, pos_rescore.tolist(), cfg.rescorer_threshold
+    )
+    cost.extra = {"positives_scored": len(asked), "threshold": cfg.rescorer_threshold}
+    return chosen, dropped, cost.to_dict()
+
+
+def _short(text: str, limit: int = AUDIT_CHARS) -> str:
+    flat = " ".join(text.split())
+    return flat if len(flat) <= limit else flat[: limit - 1].rstrip() + "…"
+
+
+def audit_markdown(
+    rows: list[dict],
+    queries: list[dict],
+    pos_texts: list[str],
+    passages: dict[str, dict],
+    counts: dict[str, int],
+    rng: np.random.Generator,
+    n: int = AUDIT_QUERIES,
+) -> str:
+    """A seeded sample of queries with their kept and dropped candidates, texts shortened.
+
+    Queries with a drop beyond the positive itself come first: they show what the rules did.
+    """
+    telling = [i for i, r in enumerate(rows) if any(d["rule"] != "positive" for d in r["dropped"])]
+    seen = set(telling)
+    rest = [i for i in range(len(rows)) if i not in seen]
+    pick = list(rng.permutation(telling)[:n]) if telling else []
+    if len(pick) < n and rest:
+        pick += list(rng.permutation(rest)[: n - len(pick)])
+    lines = [
+        "# Mined negatives: a sample to read",
+        "",
+        "Each query shows its positive, the negatives kept for training, and the candidates",
+        "dropped with the rule that dropped them (docs/mining.md explains the rules). Read the",
+        "dropped ones: are they really relevant? Read the kept ones: are they really not?",
+        "",
+        f"{len(rows)} training queries; {sum(len(r['negatives']) for r in rows)} negatives kept.",
+        "",
+        "| rule | dropped |",
+        "|---|---|",
+        *(f"| {k} | {v} |" for k, v in counts.items()),
+        "",
+    ]
+
+    def cand(c: dict) -> str:
+        extra = "".join(f", {k} {c[k]}" for k in ("jaccard", "rescore") if k in c)
+        text = _short(passages[c["id"]]["text"])
+        return f"- rank {c['rank']}, score {c['score']:.4f}{extra} `{c['id']}`: {text}"
+
+    for k, i in enumerate(sorted(int(x) for x in pick), start=1):
+        r, q = rows[i], queries[i]
+        lines += [
+            f"## {k}. query `{q['id']}` ({q.get('origin', '?')})",
+            "",
+            f"> {_short(q['text'])}",
+            "",
+            f"**positive** `{r['positive_id']}` (score {r['positive_score']:.4f}): "
+            f"{_short(pos_texts[i])}",
+            "",
+            f"**kept** ({len(r['negatives'])})",
+            "",
+            *([cand(c) for c in r["negatives"]] or ["- none"]),
+            "",
+            f"**dropped** ({len(r['dropped'])})",
+            "",
+            *([cand(d) + f" — **{d['rule']}**" for d in r["dropped"][:AUDIT_SHOWN]] or ["- none"]),
+            *(
+                [f"- … {len(r['dropped']) - AUDIT_SHOWN} more in negatives.jsonl"]
+                if len(r["dropped"]) > AUDIT_SHOWN
+                else []
+            ),
+            "",
+        ]
+    return "\n".join(lines)

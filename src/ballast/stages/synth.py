@@ -12,13 +12,61 @@ from .run import Run
 
 def synth(run: Run) -> dict[str, Any]:
     from ..synth import import_questions, synthesize
+    from ..synth.filters import MODEL_ORIGINS, RULES, counts, rule_filter
 
+    cfg = run.cfg.synth
     passages = run.passages()
-    queries, stats = synthesize(passages, run.cfg.synth, run.rng("synth"))
-    if run.cfg.synth.questions:
+    queries, stats = synthesize(
+        passages, cfg, run.rng("synth"), cache_dir=run.path("cache", "synth"), progress=run.progress
+    )
+    # Filters judge generated queries only: human questions are added after them.
+    removed_path = run.path("synth.removed.jsonl")
+    if any(g in MODEL_ORIGINS for g in cfg.generators) or cfg.round_trip_k:
+        by_id = {p["id"]: p for p in passages}
+        queries, removed = rule_filter(
+            queries,
+            by_id,
+            min_words=cfg.min_words,
+            max_words=cfg.max_words,
+            max_copy_overlap=cfg.copy_overlap,
+        )
+        if cfg.round_trip_k:
+            queries, dropped = _round_trip(run, queries, passages)
+            removed += dropped
+        stats["removed"] = counts(removed, RULES if cfg.round_trip_k else RULES[:-1])
+        write_jsonl(removed_path, removed)
+    else:
+        removed_path.unlink(missing_ok=True)
+    if cfg.questions:
         human = import_questions(run.cfg.synth.questions, passages)
         stats["human"] = len(human)
         queries.extend(human)
     write_jsonl(run.path("queries.jsonl"), queries)
     stats["total"] = len(queries)
     return stats
+
+
+def _round_trip(run: Run, queries: list[dict], passages: list[dict]) -> tuple[list, list]:
+    """Round-trip consistency (Dai et al., ICLR 2023): the base model ranks the corpus for
+    each generated query; a query whose passage is not in the top k is dropped."""
+    from ..encode import encode_cached
+    from ..models import load_encoder
+    from ..search import top_k
+    from ..synth.filters import round_trip_filter
+
+    if not queries or not passages:
+        return queries, []
+    model = load_encoder(run.base_path)
+    cache, bs = run.cache(), run.cfg.evaluate.batch_size
+    ids = [p["id"] for p in passages]
+    p_emb = encode_cached(
+        model, run.base_fp, [p["text"] for p in passages], cache,
+        batch_size=bs, label="round-trip passages", progress=run.progress,
+    )  # fmt: skip
+    q_emb = encode_cached(
+        model, run.base_fp, [q["text"] for q in queries], cache,
+        batch_size=bs, label="round-trip queries", progress=run.progress,
+    )  # fmt: skip
+    k = run.cfg.synth.round_trip_k
+    idx, _ = top_k(q_emb, p_emb, k, ids)
+    return round_trip_filter(queries, [[ids[i] for i in row] for row in idx], k)

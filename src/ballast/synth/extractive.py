@@ -5,11 +5,15 @@
   so the model learns context rather than string matching.
 - Keyword queries: a few of the passage's most distinctive terms (TF-IDF over the corpus), in
   the order they appear, as a short keyword search.
+
+``synthesize`` runs these and, for "llm" and "http", the model-written generators
+(``generate.py``).
 """
 
 from __future__ import annotations
 
 import re
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -17,6 +21,7 @@ import numpy as np
 from ..config import SynthConfig
 from ..corpus import split_sentences
 from ..files import sha256_bytes
+from ..progress import SILENT, Progress
 
 TOKEN_PATTERN = r"(?u)\b\w[\w\-]*\w\b|\b\w\b"
 
@@ -138,14 +143,44 @@ GENERATORS = {"ict": ict_queries, "keywords": keyword_queries, "headings": headi
 
 
 def synthesize(
-    passages: list[dict], cfg: SynthConfig, rng: np.random.Generator
+    passages: list[dict],
+    cfg: SynthConfig,
+    rng: np.random.Generator,
+    *,
+    cache_dir: str | Path | None = None,
+    progress: Progress = SILENT,
 ) -> tuple[list[dict], dict[str, Any]]:
-    """Run each configured generator in turn, with one seeded generator each."""
+    """Run each configured generator in turn, with one seeded generator each. The
+    model-written ones ("llm", "http") keep what they write in ``cache_dir``."""
     queries: list[dict] = []
     stats: dict[str, Any] = {}
     seeds = rng.integers(0, 2**63 - 1, size=len(cfg.generators))
     for name, seed in zip(cfg.generators, seeds, strict=True):
-        made = GENERATORS[name](passages, cfg, np.random.default_rng(int(seed)))
+        sub = np.random.default_rng(int(seed))
+        if name in MODEL_GENERATORS:
+            if cache_dir is None:
+                raise ValueError(f"the {name!r} generator needs a cache folder")
+            from .generate import model_queries
+
+            backend = MODEL_GENERATORS[name](cfg, progress)
+            made = model_queries(backend, passages, cfg, sub, cache_dir, progress)
+        else:
+            made = GENERATORS[name](passages, cfg, sub)
         stats[name] = len(made)
         queries.extend(made)
     return queries, stats
+
+
+def _local_model(cfg: SynthConfig, progress: Progress) -> Any:
+    from .llm import LocalModel
+
+    return LocalModel(cfg, progress)
+
+
+def _chat_endpoint(cfg: SynthConfig, progress: Progress) -> Any:
+    from .http import ChatEndpoint
+
+    return ChatEndpoint(cfg)
+
+
+MODEL_GENERATORS = {"llm": _local_model, "http": _chat_endpoint}

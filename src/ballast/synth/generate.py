@@ -22,6 +22,7 @@ from ..config import SynthConfig
 from ..files import sha256_bytes
 from ..progress import SILENT, Progress
 from .cache import GenerationCache, entry_key, generator_identity
+from .filters import words
 from .prompts import PromptTemplate, load_templates
 
 
@@ -131,18 +132,52 @@ def model_queries(
 
     if pending:
         backend.generate(pending, templates, on_done)
+    examples = {
+        style: {" ".join(words(e.query)) for e in t.examples} for style, t in templates.items()
+    }
     out = []
     for job in jobs:
         entry = cache.get(job.key)
         if entry is None:  # pragma: no cover - a backend that skipped work without failing
             raise RuntimeError(f"{backend.kind}: no generation for {job.key}")
+        text = clean_query(str(entry.get("raw", "")), templates[job.style])
+        meta: dict[str, Any] = {"style": job.style}
+        if " ".join(words(text)) in examples[job.style]:
+            meta["example"] = True  # the model repeated a worked example of its prompt
         out.append(
             {
                 "id": query_id(backend.kind, job.passage["id"], job.sample),
-                "text": clean_query(str(entry.get("raw", "")), templates[job.style]),
+                "text": text,
                 "passage_id": job.passage["id"],
                 "origin": backend.kind,
-                "meta": {"style": job.style},
+                "meta": meta,
             }
         )
+    return out
+
+
+def outside_inputs(run: Any) -> dict[str, str]:
+    """Fingerprints of what the synth stage reads from outside the run folder, so that
+    `ballast run` reruns it when a prompt file, the local model or the base model (for the
+    round-trip filter) changes. Missing ones read "missing"; the stage says what is wrong."""
+    from ..errors import BallastError
+    from ..files import fingerprint_tree
+    from .prompts import prompts_dir
+
+    cfg: SynthConfig = run.cfg.synth
+    out: dict[str, str] = {}
+    if any(g in ("llm", "http") for g in cfg.generators):
+        try:
+            out["prompts"] = fingerprint_tree(prompts_dir(cfg.prompts))
+        except BallastError:
+            out["prompts"] = "missing"
+    if "llm" in cfg.generators:
+        from .llm import LocalModel
+
+        try:
+            out["llm_model"] = LocalModel(cfg).fingerprint()
+        except BallastError:
+            out["llm_model"] = "missing"
+    if cfg.round_trip_k:
+        out["base_model"] = run.base_fp
     return out

@@ -20,7 +20,7 @@ from __future__ import annotations
 import http.client
 import json
 import os
-import time
+import threading
 import urllib.error
 import urllib.parse
 import urllib.request
@@ -40,6 +40,10 @@ class EndpointError(BallastError):
     """The chat endpoint refused, timed out, or answered something unusable (exit 2)."""
 
 
+class _Stopped(Exception):
+    """A request not made (or not retried) because the run is stopping."""
+
+
 def shown_url(url: str) -> str:
     """The URL without user info, query or fragment: what may appear in messages."""
     parts = urllib.parse.urlsplit(url)
@@ -57,6 +61,7 @@ class ChatEndpoint:
         self.url = cfg.http_base_url.rstrip("/") + "/chat/completions"
         self.where = f"chat endpoint {shown_url(self.url)}"
         self._key = ""
+        self._stop = threading.Event()
 
     def settings(self) -> dict[str, Any]:
         c = self.cfg
@@ -115,6 +120,8 @@ class ChatEndpoint:
         tries = self.cfg.http_retries + 1
         last = ""
         for attempt in range(tries):
+            if self._stop.is_set():
+                raise _Stopped
             wait = self.cfg.http_backoff_s * 2**attempt
             req = urllib.request.Request(self.url, data=data, headers=headers, method="POST")
             try:
@@ -156,7 +163,9 @@ class ChatEndpoint:
             else:
                 return self._parse(raw)
             if attempt + 1 < tries:
-                time.sleep(wait)
+                if self._stop.wait(wait):
+                    raise _Stopped
+
         raise self._error(
             f"gave up after {tries} tries: {last}; raise synth.http_timeout_s or "
             "synth.http_retries, or lower synth.http_concurrency"
@@ -183,20 +192,28 @@ class ChatEndpoint:
 
     # ------------------------------------------------------------------ many requests
 
+    def _complete_or_stop(self, job: Job, template: PromptTemplate) -> str:
+        try:
+            return self.complete(job, template)
+        except EndpointError:
+            self._stop.set()  # before this worker takes the next job: no request after a failure
+            raise
+
     def generate(
         self, jobs: Sequence[Job], templates: dict[str, PromptTemplate], on_done: OnDone
     ) -> None:
         self._key = self._read_key()
+        self._stop.clear()
         pool = ThreadPoolExecutor(self.cfg.http_concurrency, thread_name_prefix="ballast-http")
         error: BaseException | None = None
         try:
             futures: dict[Future[str], Job] = {
-                pool.submit(self.complete, job, templates[job.style]): job for job in jobs
+                pool.submit(self._complete_or_stop, job, templates[job.style]): job for job in jobs
             }
             for fut in as_completed(futures):
                 try:
                     raw = fut.result()
-                except CancelledError:
+                except (CancelledError, _Stopped):
                     continue
                 except EndpointError as exc:
                     if error is None:
@@ -206,6 +223,7 @@ class ChatEndpoint:
                     continue
                 on_done(futures[fut], raw)  # answers finished before a failure are kept
         finally:
+            self._stop.set()  # an interrupted run: requests in flight are not retried
             pool.shutdown(wait=error is not None, cancel_futures=True)
             self._key = ""
         if error is not None:

@@ -15,8 +15,9 @@ A temperature of 0 decodes greedily.
 
 from __future__ import annotations
 
+import contextlib
 import os
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -166,7 +167,8 @@ class LocalModel:
             tok = AutoTokenizer.from_pretrained(str(folder), **common)
             cls = AutoModelForSeq2SeqLM if seq2seq else AutoModelForCausalLM
             extra = {} if gguf else {"use_safetensors": True}
-            model = cls.from_pretrained(str(folder), **common, **extra)
+            with _quiet_gguf():
+                model = cls.from_pretrained(str(folder), **common, **extra)
         except (OSError, ValueError, KeyError) as exc:
             raise InputError(
                 f"cannot load the model: {str(exc).splitlines()[0][:300]}",
@@ -207,62 +209,64 @@ class LocalModel:
             "do_sample": False,
             "num_beams": 1,
             "pad_token_id": tok.pad_token_id,
-            "stopping_criteria": StoppingCriteriaList([_StopAtNewline(tok, start)]),
+            "stopping_criteria": StoppingCriteriaList([_stop_at_newline(tok, start)]),
         }
         if self.cfg.llm_temperature > 0:
             kwargs["logits_processor"] = LogitsProcessorList(
-                [_GumbelSampler(seeds, self.cfg.llm_temperature)]
+                [_gumbel_sampler(seeds, self.cfg.llm_temperature)]
             )
         with torch.inference_mode():
             out = model.generate(**enc, **kwargs)
         return tok.batch_decode(out[:, start:], skip_special_tokens=True)
 
 
-def _stopping_base() -> type:
+@contextlib.contextmanager
+def _quiet_gguf() -> Iterator[None]:
+    """Silence the progress bar transformers draws (with tqdm, on stderr) while it
+    de-quantizes a GGUF file: ballast reports progress itself."""
+    try:
+        import transformers.modeling_gguf_pytorch_utils as gguf_utils
+    except ImportError:  # pragma: no cover - another transformers layout
+        yield
+        return
+    saved = getattr(gguf_utils, "tqdm", None)
+    if saved is None:  # pragma: no cover
+        yield
+        return
+    gguf_utils.tqdm = lambda iterable, *args, **kwargs: iterable
+    try:
+        yield
+    finally:
+        gguf_utils.tqdm = saved
+
+
+def _stop_at_newline(tok: Any, start: int) -> Any:
+    """Stop each row once its new text holds a line break after some words."""
+    import torch
     from transformers import StoppingCriteria
 
-    return StoppingCriteria
+    class StopAtNewline(StoppingCriteria):
+        def __call__(self, input_ids: Any, scores: Any, **kwargs: Any) -> Any:
+            texts = tok.batch_decode(input_ids[:, start:], skip_special_tokens=True)
+            done = ["\n" in t.lstrip() for t in texts]
+            return torch.tensor(done, dtype=torch.bool, device=input_ids.device)
+
+    return StopAtNewline()
 
 
-def _logits_base() -> type:
+def _gumbel_sampler(seeds: list[int], temperature: float) -> Any:
+    """Per-row seeded sampling at a temperature: logits/T + Gumbel noise, then arg-max."""
+    import torch
     from transformers import LogitsProcessor
 
-    return LogitsProcessor
+    gens = [torch.Generator().manual_seed(int(s)) for s in seeds]
+    tiny = torch.finfo(torch.float32).tiny
 
+    class GumbelSampler(LogitsProcessor):
+        def __call__(self, input_ids: Any, scores: Any) -> Any:
+            vocab = scores.shape[-1]
+            u = torch.stack([torch.rand(vocab, generator=g) for g in gens])
+            noise = -torch.log(-torch.log(u.clamp(tiny, 1.0 - 1e-7)))
+            return scores.float() / temperature + noise.to(scores.device)
 
-class _StopAtNewline:
-    """Stop each row once its new text holds a line break after some words."""
-
-    def __new__(cls, tok: Any, start: int) -> Any:
-        base = _stopping_base()
-
-        class StopAtNewline(base):  # type: ignore[misc, valid-type]
-            def __call__(self, input_ids: Any, scores: Any, **kwargs: Any) -> Any:
-                import torch
-
-                texts = tok.batch_decode(input_ids[:, start:], skip_special_tokens=True)
-                return torch.tensor(
-                    ["\n" in t.lstrip() for t in texts], dtype=torch.bool, device=input_ids.device
-                )
-
-        return StopAtNewline()
-
-
-class _GumbelSampler:
-    """Per-row seeded sampling at a temperature: logits/T + Gumbel noise, then arg-max."""
-
-    def __new__(cls, seeds: list[int], temperature: float) -> Any:
-        import torch
-
-        base = _logits_base()
-        gens = [torch.Generator().manual_seed(int(s)) for s in seeds]
-
-        class GumbelSampler(base):  # type: ignore[misc, valid-type]
-            def __call__(self, input_ids: Any, scores: Any) -> Any:
-                vocab = scores.shape[-1]
-                tiny = torch.finfo(torch.float32).tiny
-                u = torch.stack([torch.rand(vocab, generator=g) for g in gens])
-                noise = -torch.log(-torch.log(u.clamp(tiny, 1.0 - 1e-7)))
-                return scores.float() / temperature + noise.to(scores.device)
-
-        return GumbelSampler()
+    return GumbelSampler()
