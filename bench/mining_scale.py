@@ -4,7 +4,7 @@ Random unit vectors (dim 384, like MiniLM), 1000 queries, top 30 (the default wi
 (size, engine) runs in its own process, so its peak resident memory (ru_maxrss) is its own;
 "over corpus" is that peak minus the resident size once the corpus is built, i.e. what the
 search itself held. The screen column times the rules over the 30 candidates of every query.
-Search time is the best of three. Ratios are measured side by side in one run: time per
+Search time is the best of five. Ratios are measured side by side in one run: time per
 passage relative to the smallest size (1.0 = linear growth).
 
     .venv/bin/python bench/mining_scale.py            # 10k, 100k, 1M (~2-4 GB, a few minutes)
@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-DIM, QUERIES, TOP, REPEATS = 384, 1000, 30, 3
+DIM, QUERIES, TOP, REPEATS = 384, 1000, 30, 5
 
 
 def _rss_mb() -> float:
@@ -33,7 +33,7 @@ def _rss_mb() -> float:
     return float("nan")
 
 
-def unit_vectors(n: int, rng: np.random.Generator, chunk: int = 100_000) -> np.ndarray:
+def unit_vectors(n: int, rng: np.random.Generator, chunk: int = 10_000) -> np.ndarray:
     out = np.empty((n, DIM), dtype=np.float32)
     for s in range(0, n, chunk):
         block = rng.standard_normal((min(chunk, n - s), DIM), dtype=np.float32)

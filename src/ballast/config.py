@@ -202,7 +202,7 @@ class MineConfig:
     rescorer_model: str = ""
     rescorer_threshold: float = 0.95
     search: str = "auto"
-    faiss_above: int = 50_000
+    faiss_above: int = 200_000
 
     def __post_init__(self) -> None:
         _range("mine.negatives", self.negatives, 0, 64)
@@ -242,8 +242,29 @@ class TrainConfig:
     max_seq_length: int = 128
     threads: int = 0
     checkpoint_steps: int = 0
+    mode: str = "full"  # "full" fine-tune, "adapter" (frozen encoder), "lora" (peft)
+    adapter_side: str = "query"  # "query" keeps a document index valid; or "both"
+    adapter_rank: int = 0  # 0 = a full d x d matrix; else W = I + U V^T of this rank
+    adapter_epochs: int = 30
+    adapter_learning_rate: float = 1e-3
+    lora_rank: int = 8
+    lora_alpha: float = 16.0
+    loss: str = "mnrl"  # or "cached_mnrl" (GradCache, Gao et al. 2021)
+    mini_batch_size: int = 8  # cached_mnrl's chunk size
 
     def __post_init__(self) -> None:
+        if self.mode not in ("full", "adapter", "lora"):
+            _fail("train.mode", self.mode, "'full', 'adapter' or 'lora'")
+        if self.adapter_side not in ("query", "both"):
+            _fail("train.adapter_side", self.adapter_side, "'query' or 'both'")
+        _range("train.adapter_rank", self.adapter_rank, 0, 4096)
+        _range("train.adapter_epochs", self.adapter_epochs, 1, 10_000)
+        _range("train.adapter_learning_rate", self.adapter_learning_rate, 0.0, 1.0, lo_open=True)
+        _range("train.lora_rank", self.lora_rank, 1, 1024)
+        _range("train.lora_alpha", self.lora_alpha, 0.0, 4096.0, lo_open=True)
+        if self.loss not in ("mnrl", "cached_mnrl"):
+            _fail("train.loss", self.loss, "'mnrl' or 'cached_mnrl'")
+        _range("train.mini_batch_size", self.mini_batch_size, 1, 4096)
         _range("train.epochs", self.epochs, 1, 100)
         _range("train.batch_size", self.batch_size, 2, 4096)
         _range("train.learning_rate", self.learning_rate, 0.0, 1.0, lo_open=True)

@@ -60,6 +60,8 @@ def run_models(
     progress: Progress = SILENT,
 ) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
     """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``."""
+    from .adapter import apply as apply_adapter
+    from .adapter import query_adapter
     from .encode import encode_cached
     from .models import load_encoder
 
@@ -68,6 +70,7 @@ def run_models(
     run_files: dict[str, str] = {}
     for name, (path, fp) in models.items():
         model = load_encoder(path, max_seq_length=max_seq_length)
+        q_map = query_adapter(path)  # a query-side adapter maps queries only (adapter.py)
         p_emb = {
             c: encode_cached(
                 model,
@@ -90,6 +93,8 @@ def run_models(
                 label=f"encoding {s.name} queries ({name})",
                 progress=progress,
             )
+            if q_map is not None:
+                q_emb = apply_adapter(q_emb, q_map)
             ranked, scores = rank(q_emb, p_emb[s.corpus], corpora[s.corpus].ids, k)
             per_query[s.name][name] = compute(metrics, ranked, s.qrels)
             run_files[f"{name}/{s.name}.run"] = format_run(

@@ -44,7 +44,7 @@ SPECS = {
     ),
     "train": StageSpec(
         "train",
-        ("train", "seed", "mine.negatives"),
+        ("train", "seed", "mine.negatives", "evaluate.batch_size"),
         ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
         ("model", "train.json"),
         True,

@@ -113,7 +113,7 @@ def faiss_available() -> bool:
     return True
 
 
-def choose_engine(n_corpus: int, method: str = "auto", faiss_above: int = 50_000) -> str:
+def choose_engine(n_corpus: int, method: str = "auto", faiss_above: int = 200_000) -> str:
     """``"exact"`` or ``"faiss"``: ``auto`` takes FAISS from ``faiss_above`` passages on."""
     if method not in ("auto", "exact", "faiss"):
         raise ValueError(f"unknown search method {method!r}; expected auto, exact or faiss")
@@ -131,7 +131,7 @@ def search(
     ids: list[str],
     *,
     method: str = "auto",
-    faiss_above: int = 50_000,
+    faiss_above: int = 200_000,
 ) -> tuple[np.ndarray, np.ndarray, str]:
     """Top-k with the engine ``choose_engine`` picks; returns (indices, scores, engine)."""
     engine = choose_engine(corpus.shape[0], method, faiss_above)

@@ -1,7 +1,10 @@
-"""Full fine-tuning with sentence-transformers on the CPU.
+"""Fine-tuning with sentence-transformers on the CPU: every weight ("full") or LoRA ("lora").
 
 MultipleNegativesRankingLoss (in-batch negatives plus the mined hard negatives), batches drawn
-without duplicate texts, seeded data order and initialisation.
+without duplicate texts, seeded data order and initialisation. ``train.loss = "cached_mnrl"``
+computes the same loss in chunks of ``mini_batch_size`` (GradCache, Gao et al. 2021). LoRA
+(Hu et al. 2021) wraps the inner transformer with peft and is merged before saving, so the
+model folder is a plain sentence-transformers model. The frozen-encoder adapter is adapter.py.
 """
 
 from __future__ import annotations
@@ -35,6 +38,31 @@ def _callback(progress: Progress, history: list[dict]) -> Any:
     return Report()
 
 
+LORA_TARGETS = ["query", "value"]  # BERT's attention projections, as in Hu et al. 2021
+
+
+def _add_lora(model: Any, cfg: TrainConfig) -> None:
+    """Wrap the inner transformer with LoRA; only the low-rank matrices are trained."""
+    from peft import LoraConfig, get_peft_model
+
+    inner = model[0]
+    inner.model = get_peft_model(
+        inner.model,
+        LoraConfig(
+            r=cfg.lora_rank,
+            lora_alpha=cfg.lora_alpha,
+            lora_dropout=0.0,
+            target_modules=LORA_TARGETS,
+            bias="none",
+        ),
+    )
+
+
+def _merge_lora(model: Any) -> None:
+    inner = model[0]
+    inner.model = inner.model.merge_and_unload()
+
+
 def train_model(
     base: Path,
     examples: list[dict],
@@ -52,12 +80,20 @@ def train_model(
         SentenceTransformerTrainer,
         SentenceTransformerTrainingArguments,
     )
-    from sentence_transformers.sentence_transformer.losses import MultipleNegativesRankingLoss
+    from sentence_transformers.sentence_transformer.losses import (
+        CachedMultipleNegativesRankingLoss,
+        MultipleNegativesRankingLoss,
+    )
 
     if cfg.threads:
         torch.set_num_threads(cfg.threads)
     torch.manual_seed(seed)
     model = load_encoder(base, max_seq_length=cfg.max_seq_length)
+    # A non-empty widget list stops the trainer drawing model-card examples, which would
+    # use the global `random` state and draw a progress bar; ballast writes no model card.
+    model.model_card_data.widget = [{"text": ""}]
+    if cfg.mode == "lora":
+        _add_lora(model, cfg)
     n_neg = min((len(e["negatives"]) for e in examples), default=0)
     columns: dict[str, list[str]] = {
         "anchor": [e["anchor"] for e in examples],
@@ -86,7 +122,10 @@ def train_model(
         dataloader_num_workers=0,
     )
     history: list[dict] = []
-    loss = MultipleNegativesRankingLoss(model)
+    if cfg.loss == "cached_mnrl":
+        loss = CachedMultipleNegativesRankingLoss(model, mini_batch_size=cfg.mini_batch_size)
+    else:
+        loss = MultipleNegativesRankingLoss(model)
     trainer = SentenceTransformerTrainer(
         model=model,
         args=args,
@@ -107,6 +146,8 @@ def train_model(
         resume = str(ckpts[-1]) if ckpts else None
     result = trainer.train(resume_from_checkpoint=resume)
     seconds = time.perf_counter() - started
+    if cfg.mode == "lora":
+        _merge_lora(model)
     model.save(str(out_dir), create_model_card=False, safe_serialization=True)
     return {
         "pairs": len(examples),

@@ -110,7 +110,7 @@ def run(case, seed: int = 0):
 
 
 @given(cases(), st.integers(0, 2**32 - 1))
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=200, deadline=None)
 def test_negatives_obey_every_rule(case, seed: int) -> None:
     ranked, scores, positive, pos_score, doc_of, text_key, sh, cfg = case
     chosen, dropped = run(case, seed)
@@ -154,7 +154,7 @@ def test_negatives_obey_every_rule(case, seed: int) -> None:
 
 
 @given(cases(), st.integers(0, 2**32 - 1))
-@settings(max_examples=100, deadline=None)
+@settings(max_examples=50, deadline=None)
 def test_same_seed_same_negatives(case, seed: int) -> None:
     assert run(case, seed) == run(case, seed)
 

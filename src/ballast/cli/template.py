@@ -81,7 +81,7 @@ rescorer_model = ""        # its local folder (safetensors); for query-likelihoo
 rescorer_threshold = 0.95  # drop a candidate the re-scorer rates at least this fraction of
                            # the positive (probability, or per-token query likelihood)
 search = "auto"            # "exact" (chunked matrix products), "faiss", or "auto": by size
-faiss_above = 50000        # with "auto", FAISS from this many training passages on
+faiss_above = 200000       # with "auto", FAISS from this many training passages on
 
 [train]
 epochs = 1
@@ -91,6 +91,19 @@ warmup_ratio = 0.1
 max_seq_length = 128
 threads = 0                # 0 = torch's default
 checkpoint_steps = 0       # save (and resume from) a checkpoint every N steps; 0 = off
+mode = "full"              # "full": fine-tune every weight; "adapter": freeze the encoder and
+                           # learn a linear map on its cached embeddings (seconds); "lora":
+                           # low-rank updates (peft), merged into a plain model on save
+adapter_side = "query"     # "query": only queries are mapped, so an existing document index
+                           # stays valid; "both": queries and documents (re-index)
+adapter_rank = 0           # 0 = a full d x d matrix; else W = I + U V^T of this rank
+adapter_epochs = 30        # the adapter's own epochs and learning rate (plain torch, Adam)
+adapter_learning_rate = 1e-3
+lora_rank = 8              # LoRA on the attention query/value projections (Hu et al. 2021);
+lora_alpha = 16.0          # LoRA usually wants a larger learning_rate, like 1e-4
+loss = "mnrl"              # "mnrl" (in-batch negatives) or "cached_mnrl": the same loss in
+                           # bounded memory for large batches (GradCache, Gao et al. 2021)
+mini_batch_size = 8        # cached_mnrl: texts encoded at once
 
 [evaluate]
 splits = ["dev", "test"]   # add "human" when synth.questions is set

@@ -17,6 +17,7 @@ from .run import Run
 def export(run: Run) -> dict[str, Any]:
     import json
 
+    from ..adapter import adapter_facts
     from ..export import SCHEMA_VERSION, copy_model, library_versions, model_facts, safe_name
     from ..models import weights_hash
 
@@ -67,6 +68,7 @@ def export(run: Run) -> dict[str, Any]:
             "format": "sentence-transformers",
             **model_facts(model_dir),
             "weights_sha256": tuned_hash,
+            "adapter": adapter_facts(model_dir),  # train.mode = "adapter": the matrix
         },
         "base_model": {
             "id": run.cfg.base_model,

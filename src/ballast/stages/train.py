@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 from .. import __version__
@@ -52,15 +53,18 @@ def train(run: Run) -> dict[str, Any]:
     )
     work = run.path(".train-work")
     with atomic_dir(run.path("model")) as tmp:
-        stats = train_model(
-            run.base_path,
-            examples,
-            run.cfg.train,
-            seed=run.cfg.seed,
-            out_dir=tmp,
-            work_dir=work,
-            progress=run.progress,
-        )
+        if run.cfg.train.mode == "adapter":
+            stats = train_frozen_adapter(run, examples, passages, tmp)
+        else:
+            stats = train_model(
+                run.base_path,
+                examples,
+                run.cfg.train,
+                seed=run.cfg.seed,
+                out_dir=tmp,
+                work_dir=work,
+                progress=run.progress,
+            )
         write_json(
             tmp / "ballast_train.json",
             {
@@ -77,3 +81,86 @@ def train(run: Run) -> dict[str, Any]:
     stats["padded_negatives"] = padded
     write_json(run.path("train.json"), stats)
     return {k: v for k, v in stats.items() if k != "loss_history"}
+
+
+def train_frozen_adapter(
+    run: Run, examples: list[dict], passages: list[dict], out_dir: Path
+) -> dict[str, Any]:
+    """train.mode = "adapter": a linear map on the base model's cached embeddings.
+
+    The passages' embeddings come from the cache the mine stage filled; the queries and any
+    training positive that differs from its passage (a masked inverse-cloze one) are encoded
+    once (and cached). The folder saved is the base model, plus ``adapter.safetensors``
+    (query side) or plus a Dense and a Normalize module (both sides)."""
+    import numpy as np
+
+    from ..adapter import ADAPTER_FILE, append_dense, save_adapter, train_adapter
+    from ..encode import encode_cached
+    from ..models import load_encoder
+
+    cfg = run.cfg.train
+    if cfg.threads:
+        import torch
+
+        torch.set_num_threads(cfg.threads)
+    model = load_encoder(run.base_path, max_seq_length=cfg.max_seq_length)
+
+    def enc(texts: list[str], label: str) -> np.ndarray:
+        return encode_cached(
+            model,
+            run.base_fp,
+            texts,
+            run.cache(),
+            batch_size=run.cfg.evaluate.batch_size,
+            label=label,
+            progress=run.progress,
+        )
+
+    texts = [p["text"] for p in passages]
+    emb = enc(texts, "encoding passages (base)")
+    index = {t: i for i, t in enumerate(texts)}
+    extra = sorted(
+        {t for e in examples for t in [e["positive"], *e["negatives"]] if t not in index}
+    )
+    if extra:
+        emb = np.concatenate([emb, enc(extra, "encoding training positives (base)")])
+        index |= {t: len(texts) + i for i, t in enumerate(extra)}
+    n_neg = min((len(e["negatives"]) for e in examples), default=0)
+    pos_ids = np.array([index[e["positive"]] for e in examples], dtype=np.int64)
+    neg_ids = np.array(
+        [[index[t] for t in e["negatives"][:n_neg]] for e in examples], dtype=np.int64
+    ).reshape(len(examples), n_neg)
+    q_emb = enc([e["anchor"] for e in examples], "encoding training queries (base)")
+    w, stats = train_adapter(
+        q_emb,
+        emb[pos_ids],
+        emb[neg_ids],
+        pos_ids,
+        neg_ids,
+        side=cfg.adapter_side,
+        rank=cfg.adapter_rank,
+        epochs=cfg.adapter_epochs,
+        batch_size=cfg.batch_size,
+        learning_rate=cfg.adapter_learning_rate,
+        seed=run.cfg.seed,
+        threads=cfg.threads or 1,
+        progress=run.progress,
+    )
+    if cfg.adapter_side == "both":
+        append_dense(model, w)
+    model.save(str(out_dir), create_model_card=False, safe_serialization=True)
+    save_adapter(out_dir / ADAPTER_FILE, w, side=cfg.adapter_side, rank=cfg.adapter_rank)
+    return {
+        "mode": "adapter",
+        "adapter_side": cfg.adapter_side,
+        "pairs": len(examples),
+        "hard_negatives_per_pair": n_neg,
+        "steps": stats["steps"],
+        "seconds": stats["seconds"],
+        "pairs_per_second": round(
+            len(examples) * cfg.adapter_epochs / max(stats["seconds"], 1e-9), 3
+        ),
+        "final_loss": stats["final_loss"],
+        "loss_history": stats["loss_history"],
+        "resumed_from": None,
+    }

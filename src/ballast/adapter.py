@@ -1,0 +1,250 @@
+"""Frozen-encoder adapters: a residual linear map trained on cached base embeddings.
+
+``W = I + D`` (``train.adapter_rank = 0``: ``D`` a full d x d matrix) or ``W = I + U V^T`` (a
+low-rank update). A mapped embedding is ``normalize(W e)``. With ``adapter_side = "query"`` only
+queries are mapped, so an index of the base model's document embeddings stays valid (Yoon et
+al., ACL 2024, trained such query-side transforms on frozen embeddings). The loss is
+MultipleNegativesRankingLoss's: softmax cross-entropy over the batch's positives and the mined
+hard negatives, cosine scores times 20 (sentence-transformers' default scale).
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .progress import SILENT, Progress
+
+ADAPTER_FILE = "adapter.safetensors"
+SCALE = 20.0  # MultipleNegativesRankingLoss's default scale (a temperature of 0.05)
+
+
+def init_params(dim: int, rank: int, gen: Any) -> dict[str, Any]:
+    """Parameters of ``W = I + D``: ``D`` is zero (rank 0) or ``U V^T`` with ``V = 0``, so the
+    map starts as the identity exactly."""
+    import torch
+
+    if rank == 0:
+        return {"delta": torch.zeros(dim, dim, requires_grad=True)}
+    u = (torch.randn(dim, rank, generator=gen) / np.sqrt(dim)).requires_grad_(True)
+    return {"u": u, "v": torch.zeros(dim, rank, requires_grad=True)}
+
+
+def matrix(params: dict[str, Any]) -> Any:
+    """The d x d matrix ``W`` of the parameters."""
+    import torch
+
+    if "delta" in params:
+        d = params["delta"]
+        return torch.eye(d.shape[0]) + d
+    u, v = params["u"], params["v"]
+    return torch.eye(u.shape[0]) + u @ v.T
+
+
+def transform(emb: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """``W e`` for each row (no normalising): the identity returns ``emb`` unchanged."""
+    return np.asarray(emb, dtype=np.float32) @ np.asarray(w, dtype=np.float32).T
+
+
+def apply(emb: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """``normalize(W e)`` for each row, as float32."""
+    out = transform(emb, w)
+    norm = np.linalg.norm(out, axis=1, keepdims=True)
+    return (out / np.maximum(norm, 1e-12)).astype(np.float32)
+
+
+def _batch_loss(w: Any, q: Any, docs: Any, mask: Any, both: bool) -> Any:
+    import torch
+    import torch.nn.functional as F
+
+    qm = F.normalize(q @ w.T, dim=1)
+    dm = F.normalize(docs @ w.T, dim=1) if both else docs
+    logits = SCALE * qm @ dm.T
+    logits = logits.masked_fill(mask, float("-inf"))
+    return F.cross_entropy(logits, torch.arange(q.shape[0]))
+
+
+def train_adapter(
+    queries: np.ndarray,
+    positives: np.ndarray,
+    negatives: np.ndarray,
+    pos_ids: np.ndarray,
+    neg_ids: np.ndarray,
+    *,
+    side: str,
+    rank: int,
+    epochs: int,
+    batch_size: int,
+    learning_rate: float,
+    seed: int,
+    threads: int = 1,
+    progress: Progress = SILENT,
+) -> tuple[np.ndarray, dict[str, Any]]:
+    """Learn ``W`` from base embeddings: ``queries`` and ``positives`` (n, d), ``negatives``
+    (n, k, d) with k >= 0. ``pos_ids``/``neg_ids`` (n,), (n, k) name the texts, so a text that
+    is another row's positive is never scored as a negative of it. The products are small:
+    ``threads`` (default one) torch threads, restored afterwards."""
+    import torch
+
+    before = torch.get_num_threads()
+    torch.set_num_threads(max(1, threads))
+    try:
+        return _train(
+            queries,
+            positives,
+            negatives,
+            pos_ids,
+            neg_ids,
+            side=side,
+            rank=rank,
+            epochs=epochs,
+            batch_size=batch_size,
+            learning_rate=learning_rate,
+            seed=seed,
+            progress=progress,
+        )
+    finally:
+        torch.set_num_threads(before)
+
+
+def _train(
+    queries: np.ndarray,
+    positives: np.ndarray,
+    negatives: np.ndarray,
+    pos_ids: np.ndarray,
+    neg_ids: np.ndarray,
+    *,
+    side: str,
+    rank: int,
+    epochs: int,
+    batch_size: int,
+    learning_rate: float,
+    seed: int,
+    progress: Progress,
+) -> tuple[np.ndarray, dict[str, Any]]:
+    import torch
+
+    n, dim = queries.shape
+    k = negatives.shape[1] if negatives.ndim == 3 else 0
+    gen = torch.Generator().manual_seed(seed)
+    params = init_params(dim, rank, gen)
+    opt = torch.optim.Adam(list(params.values()), lr=learning_rate)
+    q_all = torch.from_numpy(np.ascontiguousarray(queries, dtype=np.float32))
+    p_all = torch.from_numpy(np.ascontiguousarray(positives, dtype=np.float32))
+    n_all = torch.from_numpy(np.ascontiguousarray(negatives, dtype=np.float32).reshape(n, k, dim))
+    pid = torch.from_numpy(np.asarray(pos_ids, dtype=np.int64))
+    nid = torch.from_numpy(np.asarray(neg_ids, dtype=np.int64).reshape(n, k))
+    steps_per_epoch = -(-n // batch_size)
+    history, step, started = [], 0, time.perf_counter()
+    for epoch in range(epochs):
+        order = torch.randperm(n, generator=gen)
+        total = 0.0
+        for start in range(0, n, batch_size):
+            idx = order[start : start + batch_size]
+            b = len(idx)
+            docs = torch.cat([p_all[idx], n_all[idx].reshape(b * k, dim)])
+            doc_ids = torch.cat([pid[idx], nid[idx].reshape(b * k)])
+            mask = doc_ids[None, :] == pid[idx][:, None]  # false negatives: the same text
+            mask[torch.arange(b), torch.arange(b)] = False  # ... but never the own positive
+            loss = _batch_loss(matrix(params), q_all[idx], docs, mask, side == "both")
+            opt.zero_grad()
+            loss.backward()
+            opt.step()
+            total += float(loss.detach()) * b
+            step += 1
+            progress.step("training adapter", step, epochs * steps_per_epoch)
+        history.append({"step": step, "epoch": epoch + 1, "loss": round(total / n, 6)})
+    seconds = time.perf_counter() - started
+    with torch.no_grad():
+        w = matrix(params).numpy().astype(np.float32)
+    stats = {
+        "steps": step,
+        "seconds": round(seconds, 2),
+        "final_loss": history[-1]["loss"] if history else None,
+        "loss_history": history,
+    }
+    return w, stats
+
+
+def save_adapter(path: Path, w: np.ndarray, *, side: str, rank: int) -> None:
+    """``adapter.safetensors``: the matrix ``weight`` (d x d) and what it applies to."""
+    from safetensors.numpy import save
+
+    from .files import write_bytes_atomic
+
+    data = save(
+        {"weight": np.ascontiguousarray(w, dtype=np.float32)},
+        metadata={"side": side, "rank": str(rank), "apply": "normalize(weight @ e)"},
+    )
+    write_bytes_atomic(path, data)
+
+
+def read_adapter(model_dir: Path) -> tuple[np.ndarray, dict[str, str]] | None:
+    """The matrix and metadata of ``model_dir/adapter.safetensors``, or None."""
+    path = Path(model_dir) / ADAPTER_FILE
+    if not path.is_file():
+        return None
+    from safetensors import safe_open
+
+    with safe_open(str(path), framework="numpy") as fh:
+        meta = dict(fh.metadata() or {})
+        w = fh.get_tensor("weight")
+    return np.asarray(w, dtype=np.float32), meta
+
+
+def query_adapter(model_dir: Path) -> np.ndarray | None:
+    """The matrix to apply to query embeddings, if the model is a query-side adapter (the
+    model folder itself is then the document encoder)."""
+    got = read_adapter(model_dir)
+    if got is None or got[1].get("side") != "query":
+        return None
+    return got[0]
+
+
+def adapter_facts(model_dir: Path) -> dict[str, Any] | None:
+    """For the bundle manifest: where the matrix is, its hash, and how to apply it."""
+    from .files import sha256_file
+
+    got = read_adapter(model_dir)
+    if got is None:
+        return None
+    w, meta = got
+    side = meta.get("side", "query")
+    return {
+        "file": ADAPTER_FILE,
+        "sha256": sha256_file(Path(model_dir) / ADAPTER_FILE),
+        "side": side,
+        "rank": int(meta.get("rank", "0")),
+        "dim": int(w.shape[0]),
+        "apply": "query embedding q -> normalize(weight @ q)",
+        "in_model": side == "both",
+        "note": (
+            "queries only: documents are the base model's embeddings, so an existing index "
+            "stays valid; apply the matrix to query embeddings"
+            if side == "query"
+            else "already inside the model (a Dense module, then Normalize); do not apply again"
+        ),
+    }
+
+
+def append_dense(model: Any, w: np.ndarray) -> None:
+    """Append ``Dense(W, no bias, identity activation)`` and ``Normalize`` to a loaded model,
+    so that the folder it saves computes ``normalize(W e)`` for every text."""
+    import torch
+    from sentence_transformers.base.modules.dense import Dense
+    from sentence_transformers.base.modules.normalize import Normalize
+
+    dim = int(w.shape[0])
+    dense = Dense(
+        dim,
+        dim,
+        bias=False,
+        activation_function=torch.nn.Identity(),
+        init_weight=torch.from_numpy(np.ascontiguousarray(w, dtype=np.float32)),
+    )
+    names = [n for n, _ in model.named_children()]
+    model.add_module(str(len(names)), dense)
+    model.add_module(str(len(names) + 1), Normalize())

@@ -1,0 +1,120 @@
+"""train.mode = "adapter" (query side, both sides) and "lora" on a tiny corpus, end to end
+through the CLI: the model folder loads as one sentence-transformers model, evaluation applies a
+query-side adapter to queries only, and the bundle's manifest carries the matrix (common
+practice: a frozen-encoder adapter must leave document embeddings as the base model's)."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tests.conftest import DEMO, write_config
+
+pytestmark = pytest.mark.slow
+
+TINY = {
+    "evaluate": "bootstrap_resamples = 500",
+    "gate": "min_queries = 2",
+    "ingest": "max_tokens = 64\noverlap_tokens = 8",
+}
+
+
+def project(root: Path, train: str) -> Path:
+    docs = root / "docs"
+    docs.mkdir(parents=True)
+    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:3]:
+        text = (DEMO / "docs" / name).read_text("utf-8")
+        (docs / name).write_text(text[:3500], "utf-8")
+    return write_config(root, docs, **TINY, train="batch_size = 8\nmax_seq_length = 64\n" + train)
+
+
+def ballast_run(cfg: Path) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "ballast", "run", str(cfg), "-q", "--force"],
+        cwd=cfg.parent,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+
+
+def _encode(model_dir: Path, texts: list[str]) -> np.ndarray:
+    from ballast.encode import encode
+    from ballast.models import load_encoder
+
+    return encode(load_encoder(model_dir, max_seq_length=64), texts)
+
+
+def _bundle(run: Path) -> Path:
+    return next(p for p in (run / "bundle").iterdir() if p.is_dir())
+
+
+def test_query_side_adapter(tmp_path: Path) -> None:
+    from ballast.adapter import ADAPTER_FILE, apply, query_adapter
+    from ballast.models import resolve_model
+
+    cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"')
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    run = cfg.parent / "run"
+    stats = json.loads((run / "train.json").read_text("utf-8"))
+    assert stats["mode"] == "adapter" and stats["steps"] > 0
+    model = run / "model"
+    w = query_adapter(model)
+    assert w is not None and not np.allclose(w, np.eye(len(w)))  # it trained
+    # the document encoder is the base model: passages embed exactly as before
+    texts = [json.loads(x)["text"] for x in (run / "passages.jsonl").read_text().splitlines()][:4]
+    base = resolve_model("packaged:all-MiniLM-L6-v2")
+    assert np.array_equal(_encode(model, texts), _encode(base, texts))
+    # evaluation ranked with mapped queries: the tuned run differs from the base run
+    metrics = json.loads((run / "metrics.json").read_text("utf-8"))
+    assert "tuned" in metrics["splits"]["test"]["models"]
+    assert (run / "runs/tuned/test.run").read_text() != (run / "runs/base/test.run").read_text()
+    q = _encode(base, ["how do I file an expense claim?"])
+    assert apply(q, w).shape == q.shape
+    manifest = json.loads((_bundle(run) / "manifest.json").read_text("utf-8"))
+    facts = manifest["model"]["adapter"]
+    assert facts["side"] == "query" and facts["file"] == ADAPTER_FILE
+    assert (_bundle(run) / ADAPTER_FILE).is_file()
+
+
+def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
+    from ballast.adapter import query_adapter, read_adapter
+    from ballast.models import resolve_model
+
+    cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "both"\nadapter_rank = 16')
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    model = cfg.parent / "run" / "model"
+    modules = json.loads((model / "modules.json").read_text("utf-8"))
+    assert [m["type"].rsplit(".", 1)[-1] for m in modules][-2:] == ["Dense", "Normalize"]
+    assert query_adapter(model) is None  # inside the model, never applied twice
+    w, meta = read_adapter(model)
+    assert meta["side"] == "both"
+    texts = ["the travel policy", "submitting receipts"]
+    base = _encode(resolve_model("packaged:all-MiniLM-L6-v2"), texts)
+    got = _encode(model, texts)
+    want = base @ w.T
+    want /= np.linalg.norm(want, axis=1, keepdims=True)
+    assert np.allclose(got, want, atol=1e-5)
+
+
+def test_lora_merges_into_a_plain_model(tmp_path: Path) -> None:
+    cfg = project(tmp_path, 'mode = "lora"\nlora_rank = 4\nlearning_rate = 1e-4')
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    model = cfg.parent / "run" / "model"
+    assert not (model / "adapter_config.json").exists()
+    from safetensors import safe_open
+
+    with safe_open(str(model / "model.safetensors"), framework="numpy") as fh:
+        keys = list(fh.keys())
+    assert keys and not any("lora" in k for k in keys)
+    assert not any(k.startswith("base_model.") for k in keys)
+    stats = json.loads((cfg.parent / "run" / "train.json").read_text("utf-8"))
+    assert stats["steps"] > 0
