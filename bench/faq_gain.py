@@ -47,7 +47,27 @@ def default_cache() -> Path:
     return Path(os.environ.get("BALLAST_FAQ_CACHE", Path.home() / ".cache" / "ballast-faq"))
 
 
-def run(out: Path, cache: Path, overrides: list[str], seed: int = 0) -> dict:
+def subsample(faq: Path, out: Path, fraction: float, seed: int) -> tuple[Path, Path]:
+    """A seeded share of the FAQ documents (by hash of id), with their questions."""
+    import hashlib
+
+    def keep(doc_id: str) -> bool:
+        h = hashlib.sha256(f"{seed}\0{doc_id}".encode()).digest()
+        return int.from_bytes(h[:8], "big") / 2**64 < fraction
+
+    docs = [json.loads(x) for x in (faq / "docs" / "faq.jsonl").read_text("utf-8").splitlines()]
+    qs = [json.loads(x) for x in (faq / "questions.jsonl").read_text("utf-8").splitlines()]
+    kept = {d["id"] for d in docs if keep(d["id"])}
+    (out / "docs").mkdir(parents=True, exist_ok=True)
+    (out / "docs" / "faq.jsonl").write_text(
+        "".join(json.dumps(d) + "\n" for d in docs if d["id"] in kept), "utf-8")
+    (out / "questions.jsonl").write_text(
+        "".join(json.dumps(q) + "\n" for q in qs if q["doc_id"] in kept), "utf-8")
+    return out / "docs", out / "questions.jsonl"
+
+
+def run(out: Path, cache: Path, overrides: list[str], seed: int = 0,
+        fraction: float = 1.0) -> dict:
     from ballast.config import load_config
     from ballast.pipeline import run_all
     from ballast.stages import Run
@@ -56,8 +76,10 @@ def run(out: Path, cache: Path, overrides: list[str], seed: int = 0) -> dict:
     faq = cache / "faq"
     out.mkdir(parents=True, exist_ok=True)
     cfg_path = out / "faq.toml"
-    cfg_path.write_text(CONFIG.format(seed=seed, docs=faq / "docs",
-                                      questions=faq / "questions.jsonl"), "utf-8")
+    docs, questions = faq / "docs", faq / "questions.jsonl"
+    if fraction < 1.0:
+        docs, questions = subsample(faq, out / "data", fraction, seed)
+    cfg_path.write_text(CONFIG.format(seed=seed, docs=docs, questions=questions), "utf-8")
     cfg = load_config(cfg_path, overrides)
     started = time.perf_counter()
     stages = run_all(Run(cfg))
@@ -89,8 +111,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--cache", type=Path, default=default_cache())
     ap.add_argument("--set", dest="sets", action="append", default=[])
     ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--fraction", type=float, default=1.0, help="share of FAQ documents used")
     args = ap.parse_args(argv)
-    result = run(args.out, args.cache, args.sets, args.seed)
+    result = run(args.out, args.cache, args.sets, args.seed, args.fraction)
     sys.stdout.write(table(result) + "\n")
     return 0
 
