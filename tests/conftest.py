@@ -31,9 +31,14 @@ def write_config(folder: Path, docs: Path, questions: Path | None = None, **extr
 @pytest.fixture
 def demo_slice(tmp_path: Path) -> tuple[Path, Path]:
     """Four documents of the demo handbook and the human questions about them."""
+    return make_demo_slice(tmp_path)
+
+
+def make_demo_slice(tmp_path: Path, n_docs: int = 4) -> tuple[Path, Path]:
+    """Copy the first ``n_docs`` demo documents and their questions into ``tmp_path``."""
     docs = tmp_path / "docs"
     docs.mkdir()
-    names = sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:4]
+    names = sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:n_docs]
     for n in names:
         shutil.copy(DEMO / "docs" / n, docs / n)
     q = tmp_path / "questions.jsonl"

@@ -30,22 +30,12 @@ def ballast(*args: str, cwd: Path) -> subprocess.CompletedProcess:
 
 @pytest.fixture(scope="module")
 def two_runs(tmp_path_factory: pytest.TempPathFactory):
-    import shutil
-
-    from tests.conftest import DEMO
+    from tests.conftest import make_demo_slice
 
     out = []
     for name in ("a", "b"):
         root = tmp_path_factory.mktemp(name)
-        docs = root / "docs"
-        docs.mkdir()
-        names = sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:4]
-        for n in names:
-            shutil.copy(DEMO / "docs" / n, docs / n)
-        q = root / "questions.jsonl"
-        rows = [json.loads(x) for x in (DEMO / "questions.jsonl").read_text("utf-8").splitlines()
-                if x.strip()]
-        q.write_text("".join(json.dumps(r) + "\n" for r in rows if r["doc_id"] in names), "utf-8")
+        docs, q = make_demo_slice(root)
         cfg = write_config(root, docs, q, **SMALL)
         proc = ballast("run", str(cfg), cwd=root)
         out.append((root, cfg, proc))

@@ -8,7 +8,6 @@ from pathlib import Path
 from typing import Any
 
 from ..config import Config
-from ..errors import StageError
 from ..evaluate import Corpus, EvalSet
 from ..files import (
     atomic_dir,
@@ -35,32 +34,36 @@ def write_evaluation(
     write_json(out / "metrics.json", summary)
 
 
-def guard_set(run: Run) -> tuple[Corpus, EvalSet]:
-    """The general-domain guard split from the user's TREC-style files."""
+def file_set(name: str, queries: str | Path, qrels: str | Path,
+             passages: str | Path) -> tuple[Corpus, EvalSet, int]:
+    """An evaluation set from TREC-style files: the corpus, the judged queries, and how many
+    queries had no relevant judgement (left out)."""
+    from ..errors import InputError
     from ..trec import read_qrels, read_texts
 
-    g = run.cfg.guard
-    passages = read_texts(g.passages, "passage")
-    queries = read_texts(g.queries, "query")
-    qrels = read_qrels(g.qrels)
-    known = {pid for pid, _ in passages}
-    judged = [(q, t) for q, t in queries if any(r > 0 for r in qrels.get(q, {}).values())]
-    for q, _ in judged:
-        missing = [d for d in qrels[q] if d not in known]
+    plist = read_texts(passages, "passage")
+    qlist = read_texts(queries, "query")
+    judged = read_qrels(qrels)
+    known = {p for p, _ in plist}
+    kept = [(q, t) for q, t in qlist if any(r > 0 for r in judged.get(q, {}).values())]
+    if not kept:
+        raise InputError("no query has a relevant judgement in the qrels", path=qrels)
+    for q, _ in kept:
+        missing = [d for d in judged[q] if d not in known]
         if missing:
-            raise StageError(
-                f"{g.qrels}: query {q!r} judges document {missing[0]!r}, which is "
-                f"not in {g.passages}"
-            )
-    corpus = Corpus([p for p, _ in passages], [t for _, t in passages])
-    return corpus, EvalSet(
-        "guard",
-        "guard",
-        [q for q, _ in judged],
-        [t for _, t in judged],
-        ["guard"] * len(judged),
-        [qrels[q] for q, _ in judged],
-    )
+            raise InputError(f"query {q!r} judges document {missing[0]!r}, which is not in "
+                             f"{passages}", path=qrels)
+    corpus = Corpus([p for p, _ in plist], [t for _, t in plist])
+    evalset = EvalSet(name, name, [q for q, _ in kept], [t for _, t in kept],
+                      [name] * len(kept), [judged[q] for q, _ in kept])
+    return corpus, evalset, len(qlist) - len(kept)
+
+
+def guard_set(run: Run) -> tuple[Corpus, EvalSet]:
+    """The general-domain guard split from the user's TREC-style files."""
+    g = run.cfg.guard
+    corpus, evalset, _ = file_set("guard", g.queries, g.qrels, g.passages)
+    return corpus, evalset
 
 
 def evaluate(run: Run) -> dict[str, Any]:
@@ -137,7 +140,6 @@ def evaluate_files(
     from ..errors import InputError
     from ..evaluate import per_query_rows, run_models, summarise
     from ..models import model_fingerprint, resolve_model
-    from ..trec import read_qrels, read_texts
 
     named: dict[str, tuple[Path, str]] = {}
     for item in models:
@@ -153,31 +155,8 @@ def evaluate_files(
             )
         path = resolve_model(spec)
         named[name] = (path, model_fingerprint(path))
-    plist = read_texts(passages, "passage")
-    qlist = read_texts(queries, "query")
-    judged = read_qrels(qrels)
-    known = {p for p, _ in plist}
-    kept = [(q, t) for q, t in qlist if any(r > 0 for r in judged.get(q, {}).values())]
-    if not kept:
-        raise InputError("no query has a relevant judgement in the qrels", path=qrels)
-    for q, _ in kept:
-        missing = [d for d in judged[q] if d not in known]
-        if missing:
-            raise InputError(
-                f"query {q!r} judges document {missing[0]!r}, which is not among the passages",
-                path=qrels,
-            )
-    corpora = {"set": Corpus([p for p, _ in plist], [t for _, t in plist])}
-    sets = [
-        EvalSet(
-            "set",
-            "set",
-            [q for q, _ in kept],
-            [t for _, t in kept],
-            ["file"] * len(kept),
-            [judged[q] for q, _ in kept],
-        )
-    ]
+    corpus, evalset, unjudged = file_set("set", queries, qrels, passages)
+    corpora, sets = {"set": corpus}, [evalset]
     ev = cfg.evaluate
     metrics = list(ev.metrics)
     per_query, run_files = run_models(
@@ -201,6 +180,6 @@ def evaluate_files(
         resamples=ev.bootstrap_resamples,
         confidence=ev.confidence,
     )
-    summary["queries_without_judgements"] = len(qlist) - len(kept)
+    summary["queries_without_judgements"] = unjudged
     write_evaluation(out, summary, per_query_rows(per_query, sets, metrics), run_files)
     return summary
