@@ -144,7 +144,7 @@ def evaluate_files(
     named: dict[str, tuple[Path, str]] = {}
     for item in models:
         name, _, spec = item.rpartition("=") if "=" in item else ("", "", item)
-        name = name or Path(spec).name or spec
+        name = name or Path(spec.removeprefix("packaged:")).name or spec
         if not name.replace("-", "").replace("_", "").replace(".", "").isalnum():
             raise InputError(
                 f"model name {name!r}: use letters, digits, '-', '_' or '.'", field="--model"
