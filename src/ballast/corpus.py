@@ -61,6 +61,14 @@ def split_sentences(paragraph: str) -> list[str]:
     return [s.strip() for s in pieces if s.strip()]
 
 
+def shingles(text: str, n: int = 3) -> frozenset[str]:
+    """Word n-grams of the lowercased text, punctuation ignored (short texts: one shingle)."""
+    words = re.findall(r"\w+", text.lower())
+    if len(words) < n:
+        return frozenset({" ".join(words)})
+    return frozenset(" ".join(words[i : i + n]) for i in range(len(words) - n + 1))
+
+
 def passage_id(doc_id: str, text: str) -> str:
     return "p-" + sha256_bytes(f"{doc_id}\0{text}".encode())[:16]
 

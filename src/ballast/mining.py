@@ -21,12 +21,12 @@ re-scorer, when there is one, is asked only about as many as are needed.
 
 from __future__ import annotations
 
-import re
 from collections.abc import Callable, Sequence
 
 import numpy as np
 
 from .config import MineConfig
+from .corpus import shingles
 
 RULES = (
     "positive",
@@ -39,15 +39,6 @@ RULES = (
     "rescorer",
 )
 
-_WORD = re.compile(r"\w+")
-
-
-def shingles(text: str, n: int = 3) -> frozenset[str]:
-    """Word n-grams of the lowercased text, punctuation ignored (short texts: one shingle)."""
-    words = _WORD.findall(text.lower())
-    if len(words) < n:
-        return frozenset({" ".join(words)})
-    return frozenset(" ".join(words[i : i + n]) for i in range(len(words) - n + 1))
 
 
 def jaccard(a: frozenset[str], b: frozenset[str]) -> float:

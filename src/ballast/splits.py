@@ -11,7 +11,7 @@ from collections import Counter, defaultdict
 from typing import Any
 
 from .config import SplitConfig
-from .corpus import collapse
+from .corpus import shingles
 from .errors import InputError
 from .files import sha256_bytes
 
@@ -79,19 +79,12 @@ def qrels_for(queries: list[dict]) -> dict[str, dict[str, int]]:
     return rel
 
 
-def _shingles(text: str, n: int = 3) -> set[str]:
-    words = collapse(text).lower().split()
-    if len(words) < n:
-        return {" ".join(words)}
-    return {" ".join(words[i : i + n]) for i in range(len(words) - n + 1)}
-
-
 def leakage_audit(
     passages: list[dict], doc_split: dict[str, str], threshold: float, limit: int = 50
 ) -> dict[str, Any]:
     """Pairs of identical or near-identical passages (word 3-gram Jaccard) on both sides of
     the train / held-out boundary."""
-    sh = [_shingles(p["text"]) for p in passages]
+    sh = [shingles(p["text"]) for p in passages]
     index: dict[str, list[int]] = defaultdict(list)
     train = [i for i, p in enumerate(passages) if doc_split[p["doc_id"]] == "train"]
     for i in train:
