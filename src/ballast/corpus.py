@@ -7,6 +7,7 @@ A passage never crosses a section heading; passages are packed from whole senten
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 import re
 import unicodedata
@@ -357,10 +358,17 @@ def chunk_sentences(
     return chunks
 
 
-def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
-    docs = list(read_folder(folder, cfg))
+def iter_passages(
+    folder: Path, cfg: IngestConfig, count: Counter, stats: dict[str, Any] | None = None
+) -> Iterator[dict[str, Any]]:
+    """The passages of every document under ``folder``, in order, one at a time: memory holds a
+    document at a time plus one id per document and a 16-byte digest per kept passage (to drop
+    duplicates), so a million documents ingest in bounded memory. ``stats`` is filled in when
+    the iteration ends."""
     seen_docs: dict[str, str] = {}
-    for d in docs:
+    seen_text: set[bytes] = set()
+    dup = short = kept = tokens = 0
+    for d in read_folder(folder, cfg):
         if d.doc_id in seen_docs:
             rel, _, line = d.source.rpartition(":")  # "<file>:<line>" for a record's source
             if not (rel and line.isdigit()):
@@ -372,10 +380,6 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
                 field=cfg.id_field,
             )
         seen_docs[d.doc_id] = d.source
-    passages: list[dict[str, Any]] = []
-    seen_text: set[str] = set()
-    dup = short = 0
-    for d in docs:
         index = 0
         for heading, paras in d.sections:
             sentences: list[str] = []
@@ -395,29 +399,38 @@ def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
                 if ntok < cfg.min_tokens:
                     short += 1
                     continue
-                key = collapse(text).lower()
+                key = hashlib.blake2b(collapse(text).lower().encode(), digest_size=16).digest()
                 if key in seen_text:
                     dup += 1
                     continue
                 seen_text.add(key)
                 title = d.title if not heading or heading == d.title else f"{d.title} — {heading}"
-                passages.append(
-                    {
-                        "id": passage_id(d.doc_id, text),
-                        "doc_id": d.doc_id,
-                        "text": text,
-                        "title": title,
-                        "meta": {"index": index, "tokens": ntok, "section": heading},
-                    }
-                )
+                yield {
+                    "id": passage_id(d.doc_id, text),
+                    "doc_id": d.doc_id,
+                    "text": text,
+                    "title": title,
+                    "meta": {"index": index, "tokens": ntok, "section": heading},
+                }
                 index += 1
-    if not passages:
+                kept += 1
+                tokens += ntok
+    if not kept:
         raise InputError("no passages: every document was empty or too short", path=folder)
-    stats = {
-        "documents": len(docs),
-        "passages": len(passages),
-        "duplicates_dropped": dup,
-        "too_short_dropped": short,
-        "mean_tokens": round(sum(p["meta"]["tokens"] for p in passages) / len(passages), 1),
-    }
+    if stats is not None:
+        stats.update(
+            {
+                "documents": len(seen_docs),
+                "passages": kept,
+                "duplicates_dropped": dup,
+                "too_short_dropped": short,
+                "mean_tokens": round(tokens / kept, 1),
+            }
+        )
+
+
+def ingest(folder: Path, cfg: IngestConfig, count: Counter) -> IngestResult:
+    """Every passage in a list (``iter_passages`` streams them instead)."""
+    stats: dict[str, Any] = {}
+    passages = list(iter_passages(folder, cfg, count, stats))
     return IngestResult(passages, stats)

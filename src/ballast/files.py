@@ -51,7 +51,20 @@ def write_json(path: str | Path, obj: Any) -> None:
 
 
 def write_jsonl(path: str | Path, rows: Iterable[dict]) -> None:
-    write_text_atomic(path, "".join(dumps(r) + "\n" for r in rows))
+    """One JSON object a line, streamed to a temp file beside ``path``, then renamed over it
+    (rows may be a generator: memory stays one row deep)."""
+    path = Path(path)
+    tmp = _tmp_beside(path)
+    try:
+        with open(tmp, "wb") as fh:
+            for r in rows:
+                fh.write((dumps(r) + "\n").encode("utf-8"))
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
 
 
 @contextlib.contextmanager
@@ -113,11 +126,40 @@ def read_text(path: str | Path) -> str:
     return text.removeprefix("\ufeff")
 
 
+def _text_lines(path: Path) -> Iterator[str]:
+    """The lines of a UTF-8 file as ``str.splitlines`` cuts them, read one line at a time; a bad
+    byte is an InputError naming the file, line and byte offset (as ``read_text``'s)."""
+    try:
+        fh = open(path, "rb")  # noqa: SIM115 - closed below, the generator may stop early
+    except FileNotFoundError:
+        raise InputError("file not found", path=path) from None
+    except IsADirectoryError:
+        raise InputError("expected a file, found a folder", path=path) from None
+    with fh:
+        offset = 0
+        for n, raw in enumerate(fh):
+            try:
+                text = raw.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                at = offset + exc.start
+                raise InputError(
+                    f"not valid UTF-8 (byte 0x{raw[exc.start]:02x} at offset {at}); "
+                    "save the file as UTF-8",
+                    path=path,
+                    line=n + 1,
+                ) from None
+            offset += len(raw)
+            if n == 0:
+                text = text.removeprefix("\ufeff")
+            yield from text.splitlines() or [""]
+
+
 def read_jsonl(path: str | Path, *, allow_empty: bool = False) -> Iterator[tuple[int, dict]]:
-    """Yield (line number, object) for each non-blank line; errors name file and line."""
-    text = read_text(path)
+    """Yield (line number, object) for each non-blank line; errors name file and line. The file
+    is read as it is iterated, so a large file never sits in memory whole."""
+    path = Path(path)
     seen = 0
-    for lineno, line in enumerate(text.splitlines(), start=1):
+    for lineno, line in enumerate(_text_lines(path), start=1):
         if not line.strip():
             continue
         try:

@@ -7,11 +7,13 @@ folder's previous ``splits.json`` (same seed) are kept, and only new documents a
 
 from __future__ import annotations
 
-from collections import Counter, defaultdict
+from collections import Counter
+from collections.abc import Iterable
 from typing import Any
 
+import numpy as np
+
 from .config import SplitConfig
-from .corpus import shingles
 from .errors import InputError
 from .files import sha256_bytes
 
@@ -79,40 +81,85 @@ def qrels_for(queries: list[dict]) -> dict[str, dict[str, int]]:
     return rel
 
 
+_SPLIT_CODE = {s: i for i, s in enumerate(DOC_SPLITS)}
+
+
 def leakage_audit(
-    passages: list[dict], doc_split: dict[str, str], threshold: float, limit: int = 50
+    passages: Iterable[dict],
+    doc_split: dict[str, str],
+    threshold: float,
+    limit: int = 50,
+    *,
+    chunk: int = 20_000,
 ) -> dict[str, Any]:
-    """Pairs of identical or near-identical passages (word 3-gram Jaccard) on both sides of
-    the train / held-out boundary."""
-    sh = [shingles(p["text"]) for p in passages]
-    index: dict[str, list[int]] = defaultdict(list)
-    train = [i for i, p in enumerate(passages) if doc_split[p["doc_id"]] == "train"]
-    for i in train:
-        for s in sh[i]:
-            index[s].append(i)
-    pairs = []
-    for i, p in enumerate(passages):
-        split = doc_split[p["doc_id"]]
-        if split == "train":
-            continue
-        shared: Counter[int] = Counter()
-        for s in sh[i]:
-            shared.update(index.get(s, ()))
-        for j, inter in shared.items():
-            jac = inter / (len(sh[i]) + len(sh[j]) - inter)
-            if jac >= threshold:
-                pairs.append(
-                    {
-                        "held_out": p["id"],
-                        "split": split,
-                        "train": passages[j]["id"],
-                        "jaccard": round(jac, 4),
-                    }
-                )
-    pairs.sort(key=lambda x: (-x["jaccard"], x["held_out"], x["train"]))
-    return {
-        "threshold": threshold,
-        "pairs_found": len(pairs),
-        "pairs": pairs[:limit],
-        "identical": sum(1 for x in pairs if x["jaccard"] >= 1.0),
-    }
+    """Pairs of identical or near-identical passages (word 3-gram Jaccard, ``corpus.shingles``)
+    on both sides of the train / held-out boundary.
+
+    ``passages`` is read once, in order (a generator over passages.jsonl will do); memory holds
+    the passage ids and hashed shingle sets (``neardup``), never the texts or a shingle index of
+    strings. Only the ``limit`` best pairs are kept; ``pairs_found`` and ``identical`` count
+    them all."""
+    from .neardup import RarestFirst, ShingleHasher, similar_pairs
+
+    hasher, order = ShingleHasher(3), RarestFirst()
+    ids: list[str] = []
+    codes: list[int] = []
+    parts: list[tuple[np.ndarray, np.ndarray]] = []
+    texts: list[str] = []
+
+    def flush() -> None:
+        flat, offsets = hasher(texts)
+        order.count(flat)
+        parts.append((flat, offsets))
+        texts.clear()
+
+    for p in passages:
+        ids.append(p["id"])
+        codes.append(_SPLIT_CODE[doc_split[p["doc_id"]]])
+        texts.append(p["text"])
+        if len(texts) >= chunk:
+            flush()
+    if texts:
+        flush()
+    out: dict[str, Any] = {"threshold": threshold, "pairs_found": 0, "pairs": [], "identical": 0}
+    if not ids:
+        return out
+    # every set sorted rarest first, into one preallocated array, a chunk at a time
+    sizes = np.concatenate([np.diff(o) for _, o in parts])
+    offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    tok = np.empty(int(offsets[-1]), dtype=np.uint64)
+    at = 0
+    while parts:  # each chunk freed once copied
+        flat, offs = parts.pop(0)
+        tok[at : at + len(flat)] = order.sort(flat, offs)
+        at += len(flat)
+    del order, sizes
+    split = np.array(codes, dtype=np.int8)
+    train = np.flatnonzero(split == _SPLIT_CODE["train"])
+    held = np.flatnonzero(split != _SPLIT_CODE["train"])
+    best = np.empty((0, 3))  # rows of (-jaccard rounded, held-out index, train index)
+    id_rank: np.ndarray | None = None
+    for i, j, inter, union in similar_pairs(tok, offsets, held, train, threshold):
+        jac = inter / union
+        values, inv = np.unique(jac, return_inverse=True)
+        rounded = np.array([round(float(v), 4) for v in values])[inv.reshape(-1)]
+        out["pairs_found"] += len(jac)
+        out["identical"] += int((rounded >= 1.0).sum())
+        if id_rank is None:
+            from .search import id_ranks
+
+            id_rank = id_ranks(ids)
+        cand = np.concatenate([best, np.column_stack([-rounded, i, j])])
+        order = np.lexsort((id_rank[cand[:, 2].astype(np.int64)],
+                            id_rank[cand[:, 1].astype(np.int64)], cand[:, 0]))  # fmt: skip
+        best = cand[order[:limit]]
+    out["pairs"] = [
+        {
+            "held_out": ids[int(h)],
+            "split": DOC_SPLITS[int(split[int(h)])],
+            "train": ids[int(t)],
+            "jaccard": float(-neg),
+        }
+        for neg, h, t in best
+    ]
+    return out

@@ -12,12 +12,15 @@ from .run import Run
 
 
 def ingest(run: Run) -> dict[str, Any]:
-    from ..corpus import ingest as do_ingest
-    from ..corpus import token_counter
+    from ..corpus import iter_passages, token_counter
     from ..models import load_tokenizer
 
     run.progress.info("ingest: reading documents")
     count = token_counter(load_tokenizer(run.base_path))
-    result = do_ingest(Path(run.cfg.ingest.docs), run.cfg.ingest, count)
-    write_jsonl(run.path("passages.jsonl"), result.passages)
-    return result.stats
+    stats: dict[str, Any] = {}
+    # streamed: passages go to the file as they are cut, never all held in memory
+    write_jsonl(
+        run.path("passages.jsonl"),
+        iter_passages(Path(run.cfg.ingest.docs), run.cfg.ingest, count, stats),
+    )
+    return stats
