@@ -15,6 +15,7 @@ import os
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 from bench import faqdata
 
@@ -60,17 +61,16 @@ def subsample(faq: Path, out: Path, fraction: float, seed: int) -> tuple[Path, P
     kept = {d["id"] for d in docs if keep(d["id"])}
     (out / "docs").mkdir(parents=True, exist_ok=True)
     (out / "docs" / "faq.jsonl").write_text(
-        "".join(json.dumps(d) + "\n" for d in docs if d["id"] in kept), "utf-8")
+        "".join(json.dumps(d) + "\n" for d in docs if d["id"] in kept), "utf-8"
+    )
     (out / "questions.jsonl").write_text(
-        "".join(json.dumps(q) + "\n" for q in qs if q["doc_id"] in kept), "utf-8")
+        "".join(json.dumps(q) + "\n" for q in qs if q["doc_id"] in kept), "utf-8"
+    )
     return out / "docs", out / "questions.jsonl"
 
 
-def run(out: Path, cache: Path, overrides: list[str], seed: int = 0,
-        fraction: float = 1.0) -> dict:
+def run(out: Path, cache: Path, overrides: list[str], seed: int = 0, fraction: float = 1.0) -> dict:
     from ballast.config import load_config
-    from ballast.pipeline import run_all
-    from ballast.stages import Run
 
     sources = faqdata.build(cache)
     faq = cache / "faq"
@@ -80,26 +80,94 @@ def run(out: Path, cache: Path, overrides: list[str], seed: int = 0,
     if fraction < 1.0:
         docs, questions = subsample(faq, out / "data", fraction, seed)
     cfg_path.write_text(CONFIG.format(seed=seed, docs=docs, questions=questions), "utf-8")
-    cfg = load_config(cfg_path, overrides)
+    result = pipeline_result(load_config(cfg_path, overrides))
+    result["sources"] = {
+        k: {"version": v["version"], "pairs": v["pairs"]} for k, v in sources.items()
+    }
+    return result
+
+
+def pipeline_result(cfg: Any) -> dict:
+    """Run every stage of a config (unchanged ones are skipped); its metrics, verdict, times."""
+    from ballast.pipeline import run_all
+    from ballast.stages import Run
+
     started = time.perf_counter()
     stages = run_all(Run(cfg))
     seconds = time.perf_counter() - started
     metrics = json.loads((cfg.run_path / "metrics.json").read_text("utf-8"))
     gate = json.loads((cfg.run_path / "gate.json").read_text("utf-8"))
-    return {"sources": {k: {"version": v["version"], "pairs": v["pairs"]}
-                        for k, v in sources.items()},
-            "metrics": metrics, "gate": gate, "seconds": round(seconds, 1),
-            "stages": [{"stage": s["stage"], "seconds": s.get("seconds")} for s in stages]}
+    return {
+        "metrics": metrics,
+        "gate": gate,
+        "seconds": round(seconds, 1),
+        "stages": [
+            {"stage": s["stage"], "seconds": s.get("seconds"), "summary": s.get("summary", {})}
+            for s in stages
+        ],
+    }
+
+
+def row(result: dict, split: str = "human_heldout") -> dict:
+    """A results-table row: stage seconds and summaries, tuned-vs-base nDCG@10 on ``split``."""
+    info = result["metrics"]["splits"][split]
+    c = info["comparisons"]["tuned_vs_base"]["ndcg@10"]
+    return {
+        "split": split,
+        "seconds": {s["stage"]: s["seconds"] for s in result["stages"]},
+        "summary": {s["stage"]: s["summary"] for s in result["stages"]},
+        "total_seconds": result["seconds"],
+        "n": info["n_queries"],
+        "base": c["mean_a"],
+        "tuned": c["mean_b"],
+        "gain": c["mean_diff"],
+        "ci": [c["ci_low"], c["ci_high"]],
+        "p": c["p_value"],
+        "gate": result["gate"]["passed"],
+    }
+
+
+def variant(
+    folder: Path,
+    cache: Path,
+    overrides: list[str],
+    seed: int = 0,
+    share_from: Path | None = None,
+) -> dict:
+    """One run of a side-by-side comparison, as a row: pairs, stage seconds and summaries, and
+    the tuned-vs-base nDCG@10 on ``human_heldout``. ``share_from``: an earlier run folder whose
+    caches (generations, base-model embeddings) are copied in first, so the same work is not
+    done twice; a cache only ever saves time, it never changes a result."""
+    import shutil
+
+    if share_from is not None and not (folder / "run" / "cache").exists():
+        shutil.copytree(share_from / "run" / "cache", folder / "run" / "cache")
+    return {"overrides": overrides, **row(run(folder, cache, overrides, seed))}
+
+
+def gain_cells(row: dict) -> str:
+    """The base, tuned, gain, interval and p cells of a results table row."""
+    return (
+        f"{row['base']:.4f} | {row['tuned']:.4f} | {row['gain']:+.4f} "
+        f"| [{row['ci'][0]:+.4f}, {row['ci'][1]:+.4f}] | {row['p']:.4f}"
+    )
+
+
+GAIN_HEADER = "base nDCG@10 | tuned | gain | 95% interval | p"
 
 
 def table(result: dict) -> str:
-    lines = ["| split | queries | base nDCG@10 | tuned | gain | 95% interval | p |",
-             "|---|---|---|---|---|---|---|"]
+    lines = [
+        "| split | queries | base nDCG@10 | tuned | gain | 95% interval | p |",
+        "|---|---|---|---|---|---|---|",
+    ]
     for split, info in result["metrics"]["splits"].items():
         c = info["comparisons"]["tuned_vs_base"]["ndcg@10"]
-        lines.append(f"| {split} | {info['n_queries']} | {c['mean_a']:.4f} | {c['mean_b']:.4f} "
-                     f"| {c['mean_diff']:+.4f} | [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}] "
-                     f"| {c['p_value']:.4f} |")
+        lines.append(
+            f"| {split} | {info['n_queries']} | {c['mean_a']:.4f} | {c['mean_b']:.4f} "
+            f"| {c['mean_diff']:+.4f} | [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}] "
+            f"| {c['p_value']:.4f} |"
+        )
     lines.append(f"\ngate on human_heldout: {result['gate']['summary']}")
     lines.append(f"wall time {result['seconds']} s")
     return "\n".join(lines)

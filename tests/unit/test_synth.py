@@ -16,7 +16,9 @@ import pytest
 from ballast import InputError
 from ballast.config import SynthConfig
 from ballast.corpus import split_sentences
+from ballast.errors import ConfigError
 from ballast.synth import ict_queries, import_questions, keyword_queries, synthesize
+from ballast.synth.extractive import budget
 
 WORDS = (
     "apple press barrel yeast cellar bottle label orchard pallet valve filter sugar acid "
@@ -127,6 +129,25 @@ def test_synthesize_runs_each_generator() -> None:
     assert (queries, stats) == synthesize(passages, cfg, np.random.default_rng(0))
     only, stats = synthesize(passages, SynthConfig(generators=("ict",)), np.random.default_rng(0))
     assert stats == {"ict": 20} and {q["origin"] for q in only} == {"ict"}
+
+
+def test_budget_keeps_n_passages_in_order_chosen_by_id_and_seed() -> None:
+    passages = make_passages(50)
+    assert budget(passages, 0, 7) is passages and budget(passages, 50, 7) is passages
+    chosen = budget(passages, 10, 7)
+    assert len(chosen) == 10
+    assert [p["id"] for p in chosen] == sorted(p["id"] for p in chosen)  # input order kept
+    # The draw depends on ids and seed, not on the order of the input.
+    shuffled = [passages[i] for i in np.random.default_rng(1).permutation(50)]
+    assert {p["id"] for p in budget(shuffled, 10, 7)} == {p["id"] for p in chosen}
+    assert {p["id"] for p in budget(passages, 10, 8)} != {p["id"] for p in chosen}
+    # A larger budget keeps every passage a smaller one chose.
+    assert {p["id"] for p in chosen} <= {p["id"] for p in budget(passages, 20, 7)}
+
+
+def test_budget_is_validated() -> None:
+    with pytest.raises(ConfigError, match="synth.max_passages"):
+        SynthConfig(max_passages=-1)
 
 
 # ---------------------------------------------------------------- human questions

@@ -12,13 +12,17 @@ from .run import Run
 
 def synth(run: Run) -> dict[str, Any]:
     from ..synth import import_questions, synthesize
+    from ..synth.extractive import budget
     from ..synth.filters import MODEL_ORIGINS, RULES, counts, rule_filter
 
     cfg = run.cfg.synth
     passages = run.passages()
+    chosen = budget(passages, cfg.max_passages, run.cfg.seed)
     queries, stats = synthesize(
-        passages, cfg, run.rng("synth"), cache_dir=run.path("cache", "synth"), progress=run.progress
+        chosen, cfg, run.rng("synth"), cache_dir=run.path("cache", "synth"), progress=run.progress
     )
+    if cfg.max_passages:
+        stats["passages"] = {"chosen": len(chosen), "of": len(passages)}
     # Filters judge generated queries only: human questions are added after them.
     removed_path = run.path("synth.removed.jsonl")
     if any(g in MODEL_ORIGINS for g in cfg.generators) or cfg.round_trip_k:

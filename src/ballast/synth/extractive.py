@@ -142,6 +142,20 @@ def training_positive(query: dict, passage: dict) -> str:
 GENERATORS = {"ict": ict_queries, "keywords": keyword_queries, "headings": heading_queries}
 
 
+def budget(passages: list[dict], n: int, seed: int) -> list[dict]:
+    """At most ``n`` passages (all when ``n`` is 0), in their original order: those whose
+    seeded hash of the id ranks lowest. A passage's place in the draw depends on its id and the
+    seed only, so the choice does not depend on the order of the input, and the stage's random
+    stream is left untouched (runs without a budget are unchanged)."""
+    if not n or n >= len(passages):
+        return passages
+    rank = sorted(
+        range(len(passages)), key=lambda i: sha256_bytes(f"{seed}\0{passages[i]['id']}".encode())
+    )
+    keep = set(rank[:n])
+    return [p for i, p in enumerate(passages) if i in keep]
+
+
 def synthesize(
     passages: list[dict],
     cfg: SynthConfig,
