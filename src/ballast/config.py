@@ -80,6 +80,8 @@ class SynthConfig:
     keywords_min_terms: int = 2
     keywords_max_terms: int = 4
     questions: str = ""
+    # a budget: the generators write for at most this many passages, a seeded sample (0 = all)
+    max_passages: int = 0
     # model-written queries: "llm" (a local model) and "http" (a chat-completions endpoint)
     prompts: str = ""
     styles: tuple[str, ...] = ("question", "keywords", "troubleshooting")
@@ -116,6 +118,7 @@ class SynthConfig:
         _range("synth.keywords_per_passage", self.keywords_per_passage, 0, 20)
         _range("synth.keywords_min_terms", self.keywords_min_terms, 1, 20)
         _range("synth.keywords_max_terms", self.keywords_max_terms, self.keywords_min_terms, 20)
+        _range("synth.max_passages", self.max_passages, 0, 10**9)
 
 
 def _check_model_synth(c: SynthConfig) -> None:
@@ -251,6 +254,14 @@ class TrainConfig:
     lora_alpha: float = 16.0
     loss: str = "mnrl"  # or "cached_mnrl" (GradCache, Gao et al. 2021)
     mini_batch_size: int = 8  # cached_mnrl's chunk size
+    # Matryoshka representation learning (Kusupati et al. 2022): the loss is also taken on the
+    # first d dimensions of each embedding, for each d; evaluate scores the truncated ones too.
+    matryoshka_dims: tuple[int, ...] = ()
+    # Every eval_steps steps, score the dev split by gate.primary_metric and keep the best
+    # checkpoint; stop after early_stopping_patience scores without a gain (0 = never stop).
+    eval_steps: int = 0
+    early_stopping_patience: int = 0
+    bf16: bool = False  # bfloat16 autocast on the CPU (docs/training.md has the measurements)
 
     def __post_init__(self) -> None:
         if self.mode not in ("full", "adapter", "lora"):
@@ -265,6 +276,31 @@ class TrainConfig:
         if self.loss not in ("mnrl", "cached_mnrl"):
             _fail("train.loss", self.loss, "'mnrl' or 'cached_mnrl'")
         _range("train.mini_batch_size", self.mini_batch_size, 1, 4096)
+        for d in self.matryoshka_dims:
+            _range("train.matryoshka_dims", d, 1, 65_536)
+        if list(self.matryoshka_dims) != sorted(set(self.matryoshka_dims), reverse=True):
+            _fail(
+                "train.matryoshka_dims",
+                list(self.matryoshka_dims),
+                "distinct dimensions, largest first, like [384, 256, 128, 64]",
+            )
+        if self.matryoshka_dims and self.mode == "adapter":
+            _fail("train.mode", self.mode, "'full' or 'lora' when train.matryoshka_dims is set")
+        _range("train.eval_steps", self.eval_steps, 0, 10**9)
+        _range("train.early_stopping_patience", self.early_stopping_patience, 0, 10_000)
+        if self.early_stopping_patience and not self.eval_steps:
+            _fail(
+                "train.eval_steps", 0, "a number of steps > 0 when early_stopping_patience is set"
+            )
+        if self.eval_steps and self.mode == "adapter":
+            _fail("train.mode", self.mode, "'full' or 'lora' when train.eval_steps is set")
+        if self.eval_steps and self.checkpoint_steps % self.eval_steps:
+            _fail(
+                "train.checkpoint_steps",
+                self.checkpoint_steps,
+                f"a multiple of train.eval_steps ({self.eval_steps}): the best checkpoint is "
+                "chosen among saved ones",
+            )
         _range("train.epochs", self.epochs, 1, 100)
         _range("train.batch_size", self.batch_size, 2, 4096)
         _range("train.learning_rate", self.learning_rate, 0.0, 1.0, lo_open=True)
@@ -288,6 +324,10 @@ class EvaluateConfig:
     bootstrap_resamples: int = 10_000
     confidence: float = 0.95
     batch_size: int = 64
+    # Encode passages with one process per device (sentence-transformers' multi-process
+    # encoding), e.g. ["cuda:0", "cuda:1"]; fewer than two = in this process. Used by mine
+    # and evaluate.
+    encode_devices: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         for s in self.splits:
@@ -301,6 +341,11 @@ class EvaluateConfig:
         _range("evaluate.bootstrap_resamples", self.bootstrap_resamples, 100, 10**7)
         _range("evaluate.confidence", self.confidence, 0.0, 1.0, lo_open=True, hi_open=True)
         _range("evaluate.batch_size", self.batch_size, 1, 4096)
+        import re
+
+        for d in self.encode_devices:
+            if not re.fullmatch(r"(cpu|cuda|npu|mps|xpu)(:\d+)?", d):
+                _fail("evaluate.encode_devices", d, "devices like 'cpu', 'cuda:0', 'cuda:1'")
 
 
 @dataclass(frozen=True)
@@ -458,10 +503,12 @@ def _unknown(key: str, allowed: list[str]) -> ConfigError:
 def _coerce(key: str, value: Any, tp: Any) -> Any:
     origin = typing.get_origin(tp)
     if origin is tuple:
+        item = typing.get_args(tp)[0]
+        kind = "whole numbers" if item is int else "strings"
         if not isinstance(value, (list, tuple)):
-            _fail(key, value, "a list of strings")
-        if not all(isinstance(v, str) for v in value):
-            _fail(key, value, "a list of strings")
+            _fail(key, value, f"a list of {kind}")
+        if not all(isinstance(v, item) and not isinstance(v, bool) for v in value):
+            _fail(key, value, f"a list of {kind}")
         return tuple(value)
     if tp is bool:
         if not isinstance(value, bool):

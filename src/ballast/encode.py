@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import tempfile
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -13,6 +15,22 @@ from .files import sha256_bytes
 from .progress import SILENT, Progress
 
 
+@contextlib.contextmanager
+def device_pool(model: Any, devices: Sequence[str]) -> Iterator[Any]:
+    """sentence-transformers' own multi-process encoding: one process per entry of
+    ``devices`` (e.g. ``["cuda:0", "cuda:1"]``, or ``["cpu", "cpu"]``), each with a copy of the
+    model; ``None`` (encode in this process) for fewer than two devices. The processes are
+    stopped on leaving, also on error."""
+    if len(devices) < 2:
+        yield None
+        return
+    pool = model.start_multi_process_pool(list(devices))
+    try:
+        yield pool
+    finally:
+        model.stop_multi_process_pool(pool)
+
+
 def encode(
     model: Any,
     texts: list[str],
@@ -20,23 +38,29 @@ def encode(
     batch_size: int = 64,
     label: str = "encoding",
     progress: Progress = SILENT,
+    pool: Any = None,
 ) -> np.ndarray:
-    """Unit-normalised float32 embeddings, one row per text, in order."""
+    """Unit-normalised float32 embeddings, one row per text, in order; with a ``pool`` from
+    ``device_pool``, each batch is shared out over its processes."""
     import torch
 
     out = []
+    # With a pool, a step hands each process one batch (sentence-transformers' chunk_size).
+    spread = {"pool": pool, "chunk_size": batch_size} if pool is not None else {}
+    step = batch_size * (len(pool["processes"]) if pool is not None else 1)
     with torch.inference_mode():
-        for start in range(0, len(texts), batch_size):
-            batch = texts[start : start + batch_size]
+        for start in range(0, len(texts), step):
+            batch = texts[start : start + step]
             emb = model.encode(
                 batch,
                 batch_size=batch_size,
                 convert_to_numpy=True,
                 normalize_embeddings=True,
                 show_progress_bar=False,
+                **spread,
             )
             out.append(np.asarray(emb, dtype=np.float32))
-            progress.step(label, min(start + batch_size, len(texts)), len(texts))
+            progress.step(label, min(start + step, len(texts)), len(texts))
     if not out:
         dim = model.get_embedding_dimension()
         return np.zeros((0, dim), dtype=np.float32)
@@ -85,6 +109,7 @@ def encode_cached(
     batch_size: int = 64,
     label: str = "encoding",
     progress: Progress = SILENT,
+    pool: Any = None,
 ) -> np.ndarray:
     msl = int(getattr(model, "max_seq_length", 0) or 0)
     if cache is not None:
@@ -92,7 +117,7 @@ def encode_cached(
         if hit is not None:
             progress.info(f"{label}: {len(texts)} embeddings from cache")
             return hit
-    emb = encode(model, texts, batch_size=batch_size, label=label, progress=progress)
+    emb = encode(model, texts, batch_size=batch_size, label=label, progress=progress, pool=pool)
     if cache is not None:
         cache.put(model_fp, texts, msl, emb)
     return emb

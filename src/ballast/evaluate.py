@@ -48,6 +48,14 @@ def rank(
     return [[pids[i] for i in row] for row in idx.tolist()], scores
 
 
+def truncate(emb: np.ndarray, dim: int) -> np.ndarray:
+    """The first ``dim`` dimensions of each embedding, unit-normalised again (how a
+    Matryoshka-trained embedding is used at a smaller size; Kusupati et al. 2022)."""
+    cut = np.ascontiguousarray(emb[:, :dim], dtype=np.float32)
+    norm = np.linalg.norm(cut, axis=1, keepdims=True)
+    return cut / np.where(norm > 0, norm, 1.0)
+
+
 def run_models(
     models: dict[str, tuple[Path, str]],
     corpora: dict[str, Corpus],
@@ -57,12 +65,18 @@ def run_models(
     cache: Any,
     batch_size: int,
     max_seq_length: int | None,
+    dims: tuple[int, ...] = (),
+    devices: tuple[str, ...] = (),
     progress: Progress = SILENT,
 ) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
-    """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``."""
+    """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``.
+
+    Each of ``dims`` smaller than a model's embedding size adds a model ``NAME@DIM``: the same
+    embeddings truncated to their first DIM dimensions (no second encoding). With two or more
+    ``devices``, corpora are encoded by one process per device."""
     from .adapter import apply as apply_adapter
     from .adapter import query_adapter
-    from .encode import encode_cached
+    from .encode import device_pool, encode_cached
     from .models import load_encoder
 
     k = depth(metrics)
@@ -71,18 +85,20 @@ def run_models(
     for name, (path, fp) in models.items():
         model = load_encoder(path, max_seq_length=max_seq_length)
         q_map = query_adapter(path)  # a query-side adapter maps queries only (adapter.py)
-        p_emb = {
-            c: encode_cached(
-                model,
-                fp,
-                corpora[c].texts,
-                cache,
-                batch_size=batch_size,
-                label=f"encoding {c} passages ({name})",
-                progress=progress,
-            )
-            for c in sorted({s.corpus for s in sets})
-        }
+        with device_pool(model, devices) as pool:
+            p_emb = {
+                c: encode_cached(
+                    model,
+                    fp,
+                    corpora[c].texts,
+                    cache,
+                    batch_size=batch_size,
+                    label=f"encoding {c} passages ({name})",
+                    progress=progress,
+                    pool=pool,
+                )
+                for c in sorted({s.corpus for s in sets})
+            }
         for s in sets:
             q_emb = encode_cached(
                 model,
@@ -95,11 +111,19 @@ def run_models(
             )
             if q_map is not None:
                 q_emb = apply_adapter(q_emb, q_map)
-            ranked, scores = rank(q_emb, p_emb[s.corpus], corpora[s.corpus].ids, k)
-            per_query[s.name][name] = compute(metrics, ranked, s.qrels)
-            run_files[f"{name}/{s.name}.run"] = format_run(
-                s.qids, ranked, scores, f"ballast-{name}"
-            )
+            full = q_emb.shape[1]
+            for d in [full, *(d for d in dims if d < full)]:
+                label = name if d == full else f"{name}@{d}"
+                ranked, scores = rank(
+                    truncate(q_emb, d) if d < full else q_emb,
+                    truncate(p_emb[s.corpus], d) if d < full else p_emb[s.corpus],
+                    corpora[s.corpus].ids,
+                    k,
+                )
+                per_query[s.name][label] = compute(metrics, ranked, s.qrels)
+                run_files[f"{label}/{s.name}.run"] = format_run(
+                    s.qids, ranked, scores, f"ballast-{label}"
+                )
         del model
     return per_query, run_files
 

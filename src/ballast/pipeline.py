@@ -149,7 +149,26 @@ def is_current(run: Run, stage: str, fp: str) -> dict[str, Any] | None:
 
 
 def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str, Any]:
-    """Run one stage; with ``skip_unchanged``, reuse its last result if nothing changed."""
+    """Run one stage; with ``skip_unchanged``, reuse its last result if nothing changed.
+
+    Under torchrun (PyTorch DDP) only the train stage may run; every process trains, and only
+    rank 0 writes files."""
+    from .train import process_rank
+
+    rank, world = process_rank()
+    if world > 1:
+        from .errors import StageError
+
+        if stage != "train":
+            raise StageError(
+                f"only `ballast train` runs under torchrun (WORLD_SIZE={world}); run the "
+                f"{stage} stage as a single process"
+            )
+        if rank != 0:
+            started = time.perf_counter()
+            summary = STAGE_FUNCS[stage](run)
+            seconds = round(time.perf_counter() - started, 3)
+            return {"stage": stage, "skipped": False, "seconds": seconds, "summary": summary}
     fp, parts = fingerprint(run, stage)
     if skip_unchanged and stage != "export":
         done = is_current(run, stage, fp)

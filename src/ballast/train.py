@@ -10,12 +10,30 @@ model folder is a plain sentence-transformers model. The frozen-encoder adapter 
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from .config import TrainConfig
 from .models import load_encoder
 from .progress import SILENT, Progress
+
+
+def process_rank() -> tuple[int, int]:
+    """(rank, world size) of this process when torchrun started it (PyTorch DDP); else (0, 1)."""
+    import os
+
+    return int(os.environ.get("RANK", "0")), int(os.environ.get("WORLD_SIZE", "1"))
+
+
+def cpu_bf16_native() -> bool:
+    """Whether this CPU has bfloat16 instructions (AVX-512 BF16 or AMX BF16, Linux flags);
+    without them bf16 autocast on the CPU is emulated and usually slower than float32."""
+    try:
+        flags = Path("/proc/cpuinfo").read_text("utf-8", errors="replace")
+    except OSError:
+        return False
+    return "avx512_bf16" in flags or "amx_bf16" in flags
 
 
 def _callback(progress: Progress, history: list[dict]) -> Any:
@@ -58,6 +76,71 @@ def _add_lora(model: Any, cfg: TrainConfig) -> None:
     )
 
 
+@dataclass(frozen=True)
+class DevSet:
+    """Queries of the dev split and the corpus they search, for choosing the best checkpoint."""
+
+    query_texts: list[str]
+    qrels: list[dict[str, int]]
+    passage_ids: list[str]
+    passage_texts: list[str]
+    metric: str  # e.g. "ndcg@10": the gate's primary metric
+
+
+def _dev_evaluator(dev: DevSet, batch_size: int, history: list[dict]) -> Any:
+    """An evaluator for the trainer: ranks the whole corpus for the dev queries with the model as
+    it is now and scores ``dev.metric`` with ballast's own metrics (ties by passage id, as in
+    ``ballast evaluate``)."""
+    from sentence_transformers.base.evaluation import BaseEvaluator
+
+    from .encode import encode
+    from .evaluate import rank
+    from .metrics import compute, parse_metric
+
+    k = parse_metric(dev.metric).k
+
+    class DevEvaluator(BaseEvaluator):
+        def __init__(self) -> None:
+            super().__init__()
+            self.primary_metric = f"dev_{dev.metric}"
+
+        def __call__(self, model, output_path=None, epoch=-1, steps=-1):  # noqa: ANN001
+            p_emb = encode(model, dev.passage_texts, batch_size=batch_size)
+            q_emb = encode(model, dev.query_texts, batch_size=batch_size)
+            ranked, _ = rank(q_emb, p_emb, dev.passage_ids, k)
+            value = float(compute([dev.metric], ranked, dev.qrels)[dev.metric].mean())
+            history.append(
+                {"step": int(steps), "epoch": round(float(epoch), 4), dev.metric: round(value, 6)}
+            )
+            return {self.primary_metric: value}
+
+    return DevEvaluator()
+
+
+def _loss(model: Any, cfg: TrainConfig) -> Any:
+    from sentence_transformers.sentence_transformer.losses import (
+        CachedMultipleNegativesRankingLoss,
+        MatryoshkaLoss,
+        MultipleNegativesRankingLoss,
+    )
+
+    if cfg.loss == "cached_mnrl":
+        loss = CachedMultipleNegativesRankingLoss(model, mini_batch_size=cfg.mini_batch_size)
+    else:
+        loss = MultipleNegativesRankingLoss(model)
+    if cfg.matryoshka_dims:
+        full = model.get_sentence_embedding_dimension()
+        if max(cfg.matryoshka_dims) > full:
+            from .errors import InputError
+
+            raise InputError(
+                f"dimension {max(cfg.matryoshka_dims)} is larger than the model's {full}",
+                field="train.matryoshka_dims",
+            )
+        loss = MatryoshkaLoss(model, loss, list(cfg.matryoshka_dims))
+    return loss
+
+
 def _merge_lora(model: Any) -> None:
     inner = model[0]
     inner.model = inner.model.merge_and_unload()
@@ -71,20 +154,29 @@ def train_model(
     seed: int,
     out_dir: Path,
     work_dir: Path,
+    dev: DevSet | None = None,
     progress: Progress = SILENT,
 ) -> dict[str, Any]:
-    """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``."""
+    """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``.
+
+    With ``cfg.eval_steps`` and a ``dev`` set, the dev metric is scored every ``eval_steps``
+    steps, the best-scoring checkpoint is the one saved, and with ``early_stopping_patience``
+    training stops after that many scores without a gain."""
     import torch
     from datasets import Dataset
     from sentence_transformers import (
         SentenceTransformerTrainer,
         SentenceTransformerTrainingArguments,
     )
-    from sentence_transformers.sentence_transformer.losses import (
-        CachedMultipleNegativesRankingLoss,
-        MultipleNegativesRankingLoss,
-    )
 
+    if cfg.eval_steps and dev is None:
+        raise ValueError("train.eval_steps needs a dev set")
+    world = process_rank()[1]
+    if cfg.bf16 and not torch.cuda.is_available() and not cpu_bf16_native():
+        progress.info(
+            "train.bf16: this CPU has no bfloat16 instructions (avx512_bf16, amx_bf16); "
+            "autocast is emulated and likely slower than float32"
+        )
     if cfg.threads:
         torch.set_num_threads(cfg.threads)
     torch.manual_seed(seed)
@@ -103,6 +195,16 @@ def train_model(
         columns[f"negative_{j + 1}"] = [e["negatives"][j] for e in examples]
     dataset = Dataset.from_dict(columns)
     steps_per_epoch = -(-len(examples) // cfg.batch_size)
+    save_steps = cfg.checkpoint_steps or cfg.eval_steps
+    dev_args: dict[str, Any] = {}
+    if cfg.eval_steps:
+        dev_args = {
+            "eval_strategy": "steps",
+            "eval_steps": cfg.eval_steps,
+            "load_best_model_at_end": True,
+            "metric_for_best_model": f"eval_dev_{dev.metric}",  # type: ignore[union-attr]
+            "greater_is_better": True,
+        }
     args = SentenceTransformerTrainingArguments(
         output_dir=str(work_dir),
         num_train_epochs=cfg.epochs,
@@ -112,26 +214,33 @@ def train_model(
         seed=seed,
         data_seed=seed,
         batch_sampler="no_duplicates",
-        save_strategy="steps" if cfg.checkpoint_steps else "no",
-        save_steps=cfg.checkpoint_steps or 500,
+        save_strategy="steps" if save_steps else "no",
+        save_steps=save_steps or 500,
         save_total_limit=2,
         logging_steps=max(1, steps_per_epoch // 10),
         report_to="none",
         disable_tqdm=True,
-        use_cpu=True,
+        use_cpu=not torch.cuda.is_available(),
+        # torchrun on CPUs: gloo; on GPUs the trainer picks NCCL itself
+        ddp_backend="gloo" if not torch.cuda.is_available() and world > 1 else None,
         dataloader_num_workers=0,
+        bf16=cfg.bf16,
+        **dev_args,
     )
     history: list[dict] = []
-    if cfg.loss == "cached_mnrl":
-        loss = CachedMultipleNegativesRankingLoss(model, mini_batch_size=cfg.mini_batch_size)
-    else:
-        loss = MultipleNegativesRankingLoss(model)
+    dev_history: list[dict] = []
+    callbacks = [_callback(progress, history)]
+    if cfg.early_stopping_patience:
+        from transformers import EarlyStoppingCallback
+
+        callbacks.append(EarlyStoppingCallback(early_stopping_patience=cfg.early_stopping_patience))
     trainer = SentenceTransformerTrainer(
         model=model,
         args=args,
         train_dataset=dataset,
-        loss=loss,
-        callbacks=[_callback(progress, history)],
+        loss=_loss(model, cfg),
+        evaluator=_dev_evaluator(dev, 64, dev_history) if cfg.eval_steps and dev else None,
+        callbacks=callbacks,
     )
     from transformers.trainer_callback import PrinterCallback
 
@@ -141,21 +250,39 @@ def train_model(
             trainer.remove_callback(cb)  # no model card: it would embed dates and examples
     started = time.perf_counter()
     resume = None
-    if cfg.checkpoint_steps:
+    if save_steps:
         ckpts = sorted(work_dir.glob("checkpoint-*"), key=lambda p: int(p.name.split("-")[1]))
         resume = str(ckpts[-1]) if ckpts else None
     result = trainer.train(resume_from_checkpoint=resume)
     seconds = time.perf_counter() - started
     if cfg.mode == "lora":
         _merge_lora(model)
-    model.save(str(out_dir), create_model_card=False, safe_serialization=True)
+    if trainer.is_world_process_zero():
+        model.save(str(out_dir), create_model_card=False, safe_serialization=True)
+    state = trainer.state
+    dev_info: dict[str, Any] = {}
+    if cfg.eval_steps:
+        best = state.best_model_checkpoint
+        dev_info = {
+            "dev_metric": dev.metric,  # type: ignore[union-attr]
+            "dev_history": dev_history,
+            "best_step": int(best.rsplit("-", 1)[1]) if best else None,
+            "best_dev": round(float(state.best_metric), 6)
+            if state.best_metric is not None
+            else None,
+            "stopped_early": int(result.global_step) < int(state.max_steps),
+        }
     return {
         "pairs": len(examples),
         "hard_negatives_per_pair": n_neg,
         "steps": int(result.global_step),
         "seconds": round(seconds, 2),
         "pairs_per_second": round(len(examples) * cfg.epochs / max(seconds, 1e-9), 3),
+        "batch_size_per_process": cfg.batch_size,
         "final_loss": round(float(result.training_loss), 6),
         "loss_history": history,
         "resumed_from": Path(resume).name if resume else None,
-    }
+        "matryoshka_dims": list(cfg.matryoshka_dims),
+        "bf16": cfg.bf16,
+        "bf16_native": cpu_bf16_native() if cfg.bf16 else None,
+    } | dev_info

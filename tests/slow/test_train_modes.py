@@ -118,3 +118,53 @@ def test_lora_merges_into_a_plain_model(tmp_path: Path) -> None:
     assert not any(k.startswith("base_model.") for k in keys)
     stats = json.loads((cfg.parent / "run" / "train.json").read_text("utf-8"))
     assert stats["steps"] > 0
+
+
+def test_matryoshka_and_best_dev_checkpoint(tmp_path: Path) -> None:
+    """Matryoshka loss (Kusupati et al. 2022) with dev scoring every 2 steps: the saved model is
+    the best-scoring checkpoint, and evaluation reports the truncated sizes as models NAME@DIM."""
+    cfg = project(
+        tmp_path,
+        "matryoshka_dims = [384, 128, 64]\neval_steps = 2\nearly_stopping_patience = 2\n"
+        "epochs = 3\nlearning_rate = 1e-4",
+    )
+    with cfg.open("a") as fh:
+        fh.write("[split]\ntest_fraction = 0.34\ndev_fraction = 0.33\n")
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    run = cfg.parent / "run"
+    stats = json.loads((run / "train.json").read_text("utf-8"))
+    assert stats["matryoshka_dims"] == [384, 128, 64]
+    hist = stats["dev_history"]
+    assert hist and [h["step"] for h in hist] == list(range(2, 2 * len(hist) + 1, 2))
+    values = [h["ndcg@10"] for h in hist]
+    best = max(values)
+    assert stats["best_dev"] == pytest.approx(best, abs=1e-6)
+    assert stats["best_step"] == hist[values.index(best)]["step"]  # the first best one
+    if stats["stopped_early"]:  # patience 2: the last two scores did not beat the best
+        assert len(hist) >= 3 and max(values[-2:]) <= best and values.index(best) == len(hist) - 3
+    metrics = json.loads((run / "metrics.json").read_text("utf-8"))
+    dev = metrics["splits"]["dev"]
+    # The saved model is the best checkpoint: the evaluate stage's dev score equals it.
+    assert dev["models"]["tuned"]["ndcg@10"]["mean"] == pytest.approx(best, abs=1e-3)
+    for name in ("base@128", "base@64", "tuned@128", "tuned@64"):
+        assert name in dev["models"] and (run / "runs" / name / "dev.run").is_file()
+    assert "tuned@64_vs_base" in dev["comparisons"]
+
+
+def test_multi_process_encoding_matches_one_process() -> None:
+    """evaluate.encode_devices: sentence-transformers' own multi-process encoding, here two CPU
+    processes, gives the embeddings one process gives, in the same order."""
+    from ballast.encode import device_pool, encode
+    from ballast.models import load_encoder, resolve_model
+
+    model = load_encoder(resolve_model("packaged:all-MiniLM-L6-v2"), max_seq_length=64)
+    texts = [f"passage {i}: the press is rinsed after batch {i}" for i in range(37)]
+    one = encode(model, texts, batch_size=8)
+    with device_pool(model, ["cpu", "cpu"]) as pool:
+        assert pool is not None
+        two = encode(model, texts, batch_size=8, pool=pool)
+    assert two.shape == one.shape
+    np.testing.assert_allclose(two, one, atol=1e-5)
+    with device_pool(model, ["cpu"]) as pool:
+        assert pool is None  # one device: this process

@@ -121,6 +121,25 @@ def test_unknown_top_level_key_and_section() -> None:
         ({"train": {"epochs": True}}, "train.epochs", "an integer"),
         ({"train": 5}, "train", "a table [train]"),
         ({"ingest": {"overlap_tokens": 61}}, "ingest.overlap_tokens", "[0, 60]"),
+        ({"synth": {"max_passages": -1}}, "synth.max_passages", "[0, 1000000000]"),
+        ({"train": {"matryoshka_dims": [64, 128]}}, "train.matryoshka_dims", "largest first"),
+        ({"train": {"matryoshka_dims": [128, 128]}}, "train.matryoshka_dims", "distinct"),
+        ({"train": {"matryoshka_dims": ["64"]}}, "train.matryoshka_dims", "whole numbers"),
+        ({"train": {"matryoshka_dims": [0]}}, "train.matryoshka_dims", "[1, 65536]"),
+        (
+            {"train": {"matryoshka_dims": [64], "mode": "adapter"}},
+            "train.mode",
+            "when train.matryoshka_dims is set",
+        ),
+        ({"train": {"early_stopping_patience": 2}}, "train.eval_steps", "> 0 when early"),
+        (
+            {"train": {"eval_steps": 10, "checkpoint_steps": 15}},
+            "train.checkpoint_steps",
+            "a multiple of train.eval_steps (10)",
+        ),
+        ({"train": {"eval_steps": 5, "mode": "adapter"}}, "train.mode", "train.eval_steps"),
+        ({"train": {"bf16": 1}}, "train.bf16", "true or false"),
+        ({"evaluate": {"encode_devices": ["gpu0"]}}, "evaluate.encode_devices", "'cuda:0'"),
     ],
 )
 def test_bad_value_names_key_and_allowed(data: dict, key: str, allowed: str) -> None:

@@ -28,6 +28,8 @@ ict_min_words = 6
 keywords_per_passage = 1
 keywords_min_terms = 2
 keywords_max_terms = 4
+max_passages = 0           # budget: generate from at most this many passages, a seeded
+                           # sample (0 = all); a slow local model writes ~1 query/s on 2 cores
 questions = ""             # a JSONL of real questions: {"id","text","doc_id","quote"};
                            # set it, and add "human" to evaluate.splits and gate.splits
 # Model-written queries ("llm" and "http"); the llm_* generation settings serve both.
@@ -104,6 +106,12 @@ lora_alpha = 16.0          # LoRA usually wants a larger learning_rate, like 1e-
 loss = "mnrl"              # "mnrl" (in-batch negatives) or "cached_mnrl": the same loss in
                            # bounded memory for large batches (GradCache, Gao et al. 2021)
 mini_batch_size = 8        # cached_mnrl: texts encoded at once
+matryoshka_dims = []       # e.g. [384, 256, 128, 64]: also train (and evaluate) truncated
+                           # embeddings (Kusupati et al. 2022); full or lora mode
+eval_steps = 0             # score dev by gate.primary_metric every N steps and keep the best
+                           # checkpoint (needs split.dev_fraction > 0); 0 = off
+early_stopping_patience = 0  # stop after this many dev scores without a gain; 0 = never
+bf16 = false               # bfloat16 autocast on the CPU (see docs/training.md)
 
 [evaluate]
 splits = ["dev", "test"]   # add "human" when synth.questions is set
@@ -111,6 +119,8 @@ metrics = ["ndcg@10", "mrr@10", "recall@10", "precision@10", "map@10", "hit_rate
 bootstrap_resamples = 10000
 confidence = 0.95
 batch_size = 64
+encode_devices = []        # e.g. ["cuda:0", "cuda:1"]: encode passages (mine, evaluate) in one
+                           # process per device; [] = in this process
 
 [guard]                    # optional general-domain set, to catch forgetting; then add
 queries = ""               # "guard" to evaluate.splits and gate.splits. Queries and passages:

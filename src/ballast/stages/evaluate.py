@@ -11,6 +11,7 @@ from ..config import Config
 from ..evaluate import Corpus, EvalSet
 from ..files import (
     atomic_dir,
+    read_jsonl,
     write_json,
     write_text_atomic,
 )
@@ -34,8 +35,9 @@ def write_evaluation(
     write_json(out / "metrics.json", summary)
 
 
-def file_set(name: str, queries: str | Path, qrels: str | Path,
-             passages: str | Path) -> tuple[Corpus, EvalSet, int]:
+def file_set(
+    name: str, queries: str | Path, qrels: str | Path, passages: str | Path
+) -> tuple[Corpus, EvalSet, int]:
     """An evaluation set from TREC-style files: the corpus, the judged queries, and how many
     queries had no relevant judgement (left out)."""
     from ..errors import InputError
@@ -51,11 +53,19 @@ def file_set(name: str, queries: str | Path, qrels: str | Path,
     for q, _ in kept:
         missing = [d for d in judged[q] if d not in known]
         if missing:
-            raise InputError(f"query {q!r} judges document {missing[0]!r}, which is not in "
-                             f"{passages}", path=qrels)
+            raise InputError(
+                f"query {q!r} judges document {missing[0]!r}, which is not in {passages}",
+                path=qrels,
+            )
     corpus = Corpus([p for p, _ in plist], [t for _, t in plist])
-    evalset = EvalSet(name, name, [q for q, _ in kept], [t for _, t in kept],
-                      [name] * len(kept), [judged[q] for q, _ in kept])
+    evalset = EvalSet(
+        name,
+        name,
+        [q for q, _ in kept],
+        [t for _, t in kept],
+        [name] * len(kept),
+        [judged[q] for q, _ in kept],
+    )
     return corpus, evalset, len(qlist) - len(kept)
 
 
@@ -72,7 +82,7 @@ def evaluate(run: Run) -> dict[str, Any]:
     from ..splits import qrels_for
 
     cfg = run.cfg.evaluate
-    passages, queries, splits = run.passages(), run.queries(), run.splits()
+    queries, splits = run.queries(), run.splits()
     by_qid = {q["id"]: q for q in queries}
     tuned_path = run.need("model", "train")
     models = {
@@ -81,7 +91,12 @@ def evaluate(run: Run) -> dict[str, Any]:
     }
     metrics = list(cfg.metrics)
     qrels_all = qrels_for(queries)
-    corpora = {"main": Corpus([p["id"] for p in passages], [p["text"] for p in passages])}
+    pids: list[str] = []
+    texts: list[str] = []
+    for _, p in read_jsonl(run.need("passages.jsonl", "ingest")):  # streamed: ids and texts only
+        pids.append(p["id"])
+        texts.append(p["text"])
+    corpora = {"main": Corpus(pids, texts)}
     sets = []
     for s in cfg.splits:
         if s == "guard":
@@ -109,13 +124,18 @@ def evaluate(run: Run) -> dict[str, Any]:
         cache=run.cache(),
         batch_size=cfg.batch_size,
         max_seq_length=run.cfg.train.max_seq_length,
+        dims=run.cfg.train.matryoshka_dims,
+        devices=cfg.encode_devices,
         progress=run.progress,
     )
+    truncated = {  # Matryoshka: the same models at smaller sizes, named NAME@DIM
+        m: models[m.split("@")[0]] for m in next(iter(per_query.values()), {}) if "@" in m
+    }
     summary = summarise(
         per_query,
         sets,
         metrics,
-        models,
+        models | truncated,
         baseline="base",
         seed=run.cfg.seed,
         resamples=cfg.bootstrap_resamples,

@@ -23,17 +23,19 @@ AUDIT_SHOWN = 8  # dropped candidates shown per query, best ranked first
 
 
 def _base_corpus_embeddings(run: Run, model: Any, passages: list[dict]) -> np.ndarray:
-    from ..encode import encode_cached
+    from ..encode import device_pool, encode_cached
 
-    return encode_cached(
-        model,
-        run.base_fp,
-        [p["text"] for p in passages],
-        run.cache(),
-        batch_size=run.cfg.evaluate.batch_size,
-        label="encoding passages (base)",
-        progress=run.progress,
-    )
+    with device_pool(model, run.cfg.evaluate.encode_devices) as pool:
+        return encode_cached(
+            model,
+            run.base_fp,
+            [p["text"] for p in passages],
+            run.cache(),
+            batch_size=run.cfg.evaluate.batch_size,
+            label="encoding passages (base)",
+            progress=run.progress,
+            pool=pool,
+        )
 
 
 def _rec(tp: list[dict], c: dict) -> dict:

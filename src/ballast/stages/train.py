@@ -16,6 +16,30 @@ from ..synth.extractive import training_positive
 from .run import Run
 
 
+def dev_set(run: Run) -> Any:
+    """The dev split's queries against the whole corpus, scored by the gate's primary metric,
+    for ``train.eval_steps``; an error when the split has no dev queries."""
+    from ..splits import qrels_for
+    from ..train import DevSet
+
+    queries, splits, passages = run.queries(), run.splits(), run.passages()
+    qids = splits["queries"].get("dev", [])
+    if not qids:
+        raise StageError(
+            "train.eval_steps scores the dev split, which has no queries: set "
+            "split.dev_fraction above 0 (or train.eval_steps = 0)"
+        )
+    by_qid = {q["id"]: q for q in queries}
+    qrels = qrels_for(queries)
+    return DevSet(
+        [by_qid[q]["text"] for q in qids],
+        [qrels[q] for q in qids],
+        [p["id"] for p in passages],
+        [p["text"] for p in passages],
+        run.cfg.gate.primary_metric,
+    )
+
+
 def train(run: Run) -> dict[str, Any]:
     from ..train import train_model
 
@@ -52,6 +76,18 @@ def train(run: Run) -> dict[str, Any]:
         f"{run.cfg.train.epochs} epoch(s)"
     )
     work = run.path(".train-work")
+    from ..train import process_rank
+
+    rank, world = process_rank()
+    if rank != 0:  # torchrun: a helper process trains its share and writes nothing
+        import tempfile
+
+        with tempfile.TemporaryDirectory() as scratch:
+            return train_model(
+                run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
+                out_dir=Path(scratch), work_dir=work, progress=run.progress,
+                dev=dev_set(run) if run.cfg.train.eval_steps else None,
+            )  # fmt: skip
     with atomic_dir(run.path("model")) as tmp:
         if run.cfg.train.mode == "adapter":
             stats = train_frozen_adapter(run, examples, passages, tmp)
@@ -63,6 +99,7 @@ def train(run: Run) -> dict[str, Any]:
                 seed=run.cfg.seed,
                 out_dir=tmp,
                 work_dir=work,
+                dev=dev_set(run) if run.cfg.train.eval_steps else None,
                 progress=run.progress,
             )
         write_json(
@@ -79,6 +116,7 @@ def train(run: Run) -> dict[str, Any]:
 
     shutil.rmtree(work, ignore_errors=True)
     stats["padded_negatives"] = padded
+    stats["processes"] = world
     write_json(run.path("train.json"), stats)
     return {k: v for k, v in stats.items() if k != "loss_history"}
 
