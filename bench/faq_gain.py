@@ -156,6 +156,23 @@ def gain_cells(row: dict) -> str:
 GAIN_HEADER = "base nDCG@10 | tuned | gain | 95% interval | p"
 
 
+def heldout_footer(rows: list[dict]) -> str:
+    """The line under a table of ``human_heldout`` rows: what the numbers are measured on."""
+    if not rows:
+        return ""
+    return (
+        f"\nnDCG@10 on human_heldout: {rows[0]['n']} real questions about documents the model "
+        "never trained on"
+    )
+
+
+def save_progress(out: Path, rows: list[dict], text: str) -> None:
+    """After each variant: every row so far to ``out/results.json``, the table to stderr."""
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
+    sys.stderr.write(text + "\n")
+
+
 def table(result: dict) -> str:
     lines = [
         "| split | queries | base nDCG@10 | tuned | gain | 95% interval | p |",

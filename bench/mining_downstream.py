@@ -23,7 +23,6 @@ base vs tuned nDCG@10 with its 95% interval, side by side.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 from pathlib import Path
 
@@ -68,12 +67,7 @@ def table(rows: list[dict]) -> str:
             f"| {dropped or '-'} | {cost} | {r['seconds']['mine']} | {r['seconds']['train']} "
             f"| {faq_gain.gain_cells(r)} |"
         )
-    if rows:
-        lines.append(
-            f"\nnDCG@10 on human_heldout: {rows[0]['n']} real questions about documents the "
-            "model never trained on"
-        )
-    return "\n".join(lines)
+    return "\n".join(lines) + faq_gain.heldout_footer(rows)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -96,8 +90,7 @@ def main(argv: list[str] | None = None) -> int:
         row = faq_gain.variant(folder, args.cache, sets, args.seed, share_from=first)
         rows.append({"variant": name, **row})
         first = first or folder
-        (args.out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
-        sys.stderr.write(table(rows) + "\n")
+        faq_gain.save_progress(args.out, rows, table(rows))
     sys.stdout.write(table(rows) + "\n")
     return 0
 

@@ -22,7 +22,6 @@ measures one.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 from pathlib import Path
 
@@ -43,12 +42,7 @@ def table(rows: list[dict]) -> str:
             f"| {r['summary']['train']['pairs']} | {removed_txt} | {r['seconds']['synth']} "
             f"| {r['seconds']['train']} | {faq_gain.gain_cells(r)} |"
         )
-    if rows:
-        lines.append(
-            f"\nnDCG@10 on human_heldout: {rows[0]['n']} real questions about documents the "
-            "model never trained on"
-        )
-    return "\n".join(lines)
+    return "\n".join(lines) + faq_gain.heldout_footer(rows)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -69,8 +63,7 @@ def main(argv: list[str] | None = None) -> int:
             row = faq_gain.variant(folder, args.cache, sets, args.seed, share_from=first)
             rows.append({"generator": g, "round_trip_k": k, **row})
             first = folder
-            (args.out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
-            sys.stderr.write(table(rows) + "\n")
+            faq_gain.save_progress(args.out, rows, table(rows))
     sys.stdout.write(table(rows) + "\n")
     return 0
 

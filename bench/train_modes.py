@@ -20,7 +20,6 @@ work is not repeated; a cache saves time and never changes a result.
 from __future__ import annotations
 
 import argparse
-import json
 import shutil
 import sys
 from pathlib import Path
@@ -84,8 +83,7 @@ def main(argv: list[str] | None = None) -> int:
                 for split in DEMO_SPLITS:
                     rows.append({"data": data, "mode": mode, **faq_gain.row(result, split)})
             first = first or folder
-            (args.out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
-            sys.stderr.write(table(rows) + "\n")
+            faq_gain.save_progress(args.out, rows, table(rows))
     sys.stdout.write(table(rows) + "\n")
     return 0
 

@@ -22,19 +22,27 @@ def _tmp_beside(path: Path) -> Path:
     return Path(name)
 
 
-def write_bytes_atomic(path: str | Path, data: bytes) -> None:
-    """Write to a temp file beside ``path``, fsync, then rename over it."""
+@contextlib.contextmanager
+def _atomic_file(path: str | Path) -> Iterator[Any]:
+    """A binary file handle on a temp file beside ``path``; on a clean exit it is flushed,
+    fsynced and renamed over ``path``; on any error it is removed and ``path`` is untouched."""
     path = Path(path)
     tmp = _tmp_beside(path)
     try:
         with open(tmp, "wb") as fh:
-            fh.write(data)
+            yield fh
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def write_bytes_atomic(path: str | Path, data: bytes) -> None:
+    """Write to a temp file beside ``path``, fsync, then rename over it."""
+    with _atomic_file(path) as fh:
+        fh.write(data)
 
 
 def write_text_atomic(path: str | Path, text: str) -> None:
@@ -53,18 +61,9 @@ def write_json(path: str | Path, obj: Any) -> None:
 def write_jsonl(path: str | Path, rows: Iterable[dict]) -> None:
     """One JSON object a line, streamed to a temp file beside ``path``, then renamed over it
     (rows may be a generator: memory stays one row deep)."""
-    path = Path(path)
-    tmp = _tmp_beside(path)
-    try:
-        with open(tmp, "wb") as fh:
-            for r in rows:
-                fh.write((dumps(r) + "\n").encode("utf-8"))
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
+    with _atomic_file(path) as fh:
+        for r in rows:
+            fh.write((dumps(r) + "\n").encode("utf-8"))
 
 
 @contextlib.contextmanager
