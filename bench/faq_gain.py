@@ -156,6 +156,37 @@ def gain_cells(row: dict) -> str:
 GAIN_HEADER = "base nDCG@10 | tuned | gain | 95% interval | p"
 
 
+def tuned_scores(run_dir: Path, split: str = "human_heldout") -> dict[str, float]:
+    """The tuned model's nDCG@10 per query of ``split``, from a run's per_query.csv."""
+    import csv
+
+    with open(run_dir / "per_query.csv", newline="", encoding="utf-8") as fh:
+        return {
+            r["query_id"]: float(r["ndcg@10"])
+            for r in csv.DictReader(fh)
+            if r["split"] == split and r["model"] == "tuned"
+        }
+
+
+def paired_tuned(a: Path, b: Path, split: str = "human_heldout", seed: int = 0) -> dict:
+    """Tuned model of run ``b`` against tuned model of run ``a`` on the same queries: the
+    paired bootstrap interval and randomization test ballast's evaluation uses (ballast.stats)."""
+    import numpy as np
+
+    from ballast.stats import compare
+
+    sa, sb = tuned_scores(a, split), tuned_scores(b, split)
+    qids = sorted(sa)
+    if sorted(sb) != qids:
+        raise ValueError(f"{a} and {b} scored different {split} queries")
+    c = compare(
+        np.array([sa[q] for q in qids]),
+        np.array([sb[q] for q in qids]),
+        rng=np.random.default_rng(seed),
+    )
+    return c.to_dict()
+
+
 def heldout_footer(rows: list[dict]) -> str:
     """The line under a table of ``human_heldout`` rows: what the numbers are measured on."""
     if not rows:

