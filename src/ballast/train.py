@@ -85,9 +85,10 @@ class DevSet:
     passage_ids: list[str]
     passage_texts: list[str]
     metric: str  # e.g. "ndcg@10": the gate's primary metric
+    batch_size: int = 64  # encoding batch (evaluate.batch_size)
 
 
-def _dev_evaluator(dev: DevSet, batch_size: int, history: list[dict]) -> Any:
+def _dev_evaluator(dev: DevSet, history: list[dict]) -> Any:
     """An evaluator for the trainer: ranks the whole corpus for the dev queries with the model as
     it is now and scores ``dev.metric`` with ballast's own metrics (ties by passage id, as in
     ``ballast evaluate``)."""
@@ -105,8 +106,8 @@ def _dev_evaluator(dev: DevSet, batch_size: int, history: list[dict]) -> Any:
             self.primary_metric = f"dev_{dev.metric}"
 
         def __call__(self, model, output_path=None, epoch=-1, steps=-1):  # noqa: ANN001
-            p_emb = encode(model, dev.passage_texts, batch_size=batch_size)
-            q_emb = encode(model, dev.query_texts, batch_size=batch_size)
+            p_emb = encode(model, dev.passage_texts, batch_size=dev.batch_size)
+            q_emb = encode(model, dev.query_texts, batch_size=dev.batch_size)
             ranked, _ = rank(q_emb, p_emb, dev.passage_ids, k)
             value = float(compute([dev.metric], ranked, dev.qrels)[dev.metric].mean())
             history.append(
@@ -239,7 +240,7 @@ def train_model(
         args=args,
         train_dataset=dataset,
         loss=_loss(model, cfg),
-        evaluator=_dev_evaluator(dev, 64, dev_history) if cfg.eval_steps and dev else None,
+        evaluator=_dev_evaluator(dev, dev_history) if cfg.eval_steps and dev else None,
         callbacks=callbacks,
     )
     from transformers.trainer_callback import PrinterCallback

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 from typing import Any
 
@@ -16,13 +17,12 @@ from ..synth.extractive import training_positive
 from .run import Run
 
 
-def dev_set(run: Run) -> Any:
+def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -> Any:
     """The dev split's queries against the whole corpus, scored by the gate's primary metric,
     for ``train.eval_steps``; an error when the split has no dev queries."""
     from ..splits import qrels_for
     from ..train import DevSet
 
-    queries, splits, passages = run.queries(), run.splits(), run.passages()
     qids = splits["queries"].get("dev", [])
     if not qids:
         raise StageError(
@@ -37,6 +37,7 @@ def dev_set(run: Run) -> Any:
         [p["id"] for p in passages],
         [p["text"] for p in passages],
         run.cfg.gate.primary_metric,
+        run.cfg.evaluate.batch_size,
     )
 
 
@@ -78,30 +79,22 @@ def train(run: Run) -> dict[str, Any]:
     work = run.path(".train-work")
     from ..train import process_rank
 
+    dev = dev_set(run, passages, queries, splits) if run.cfg.train.eval_steps else None
+    fit = functools.partial(
+        train_model, run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
+        work_dir=work, dev=dev, progress=run.progress,
+    )  # fmt: skip
     rank, world = process_rank()
     if rank != 0:  # torchrun: a helper process trains its share and writes nothing
         import tempfile
 
         with tempfile.TemporaryDirectory() as scratch:
-            return train_model(
-                run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
-                out_dir=Path(scratch), work_dir=work, progress=run.progress,
-                dev=dev_set(run) if run.cfg.train.eval_steps else None,
-            )  # fmt: skip
+            return fit(out_dir=Path(scratch))
     with atomic_dir(run.path("model")) as tmp:
         if run.cfg.train.mode == "adapter":
             stats = train_frozen_adapter(run, examples, passages, tmp)
         else:
-            stats = train_model(
-                run.base_path,
-                examples,
-                run.cfg.train,
-                seed=run.cfg.seed,
-                out_dir=tmp,
-                work_dir=work,
-                dev=dev_set(run) if run.cfg.train.eval_steps else None,
-                progress=run.progress,
-            )
+            stats = fit(out_dir=tmp)
         write_json(
             tmp / "ballast_train.json",
             {
