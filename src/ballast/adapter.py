@@ -6,11 +6,17 @@ queries are mapped, so an index of the base model's document embeddings stays va
 al., ACL 2024, trained such query-side transforms on frozen embeddings). The loss is
 MultipleNegativesRankingLoss's: softmax cross-entropy over the batch's positives and the mined
 hard negatives, cosine scores times 20 (sentence-transformers' default scale).
+
+With a ``score`` function (the dev split's primary metric of a map) the map of the best epoch is
+kept, and the identity (epoch 0) competes: a map that does not beat the base model on dev is
+never shipped. On the demo, 147k parameters fit 427 training pairs within a few epochs (train
+nDCG@10 0.77 -> 0.99) while dev fell (0.77 -> 0.55): docs/training.md has the measurements.
 """
 
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -56,6 +62,30 @@ def apply(emb: np.ndarray, w: np.ndarray) -> np.ndarray:
     return (out / np.maximum(norm, 1e-12)).astype(np.float32)
 
 
+def dev_scorer(
+    q_emb: np.ndarray,
+    p_emb: np.ndarray,
+    passage_ids: list[str],
+    qrels: list[dict[str, int]],
+    metric: str,
+    side: str,
+) -> Callable[[np.ndarray], float]:
+    """``score(W)``: the mean ``metric`` of the dev queries (base embeddings ``q_emb``) ranked
+    over the whole corpus (``p_emb``), the queries mapped by ``W`` (and the passages too when
+    ``side = "both"``); ranked as ``ballast evaluate`` ranks (ties by passage id)."""
+    from .evaluate import rank
+    from .metrics import compute, parse_metric
+
+    k = parse_metric(metric).k
+
+    def score(w: np.ndarray) -> float:
+        docs = apply(p_emb, w) if side == "both" else p_emb
+        ranked, _ = rank(apply(q_emb, w), docs, passage_ids, k)
+        return float(compute([metric], ranked, qrels)[metric].mean())
+
+    return score
+
+
 def _batch_loss(w: Any, q: Any, docs: Any, mask: Any, both: bool) -> Any:
     import torch
     import torch.nn.functional as F
@@ -81,11 +111,15 @@ def train_adapter(
     learning_rate: float,
     seed: int,
     threads: int = 1,
+    score: Callable[[np.ndarray], float] | None = None,
+    patience: int = 0,
     progress: Progress = SILENT,
 ) -> tuple[np.ndarray, dict[str, Any]]:
     """Learn ``W`` from base embeddings: ``queries`` and ``positives`` (n, d), ``negatives``
     (n, k, d) with k >= 0. ``pos_ids``/``neg_ids`` (n,), (n, k) name the texts, so a text that
-    is another row's positive is never scored as a negative of it. The products are small:
+    is another row's positive is never scored as a negative of it. With ``score`` (higher is
+    better) each epoch's map is scored and the best one returned, the identity included;
+    ``patience`` > 0 stops after that many epochs without a gain. The products are small:
     ``threads`` (default one) torch threads, restored afterwards."""
     import torch
 
@@ -104,6 +138,8 @@ def train_adapter(
             batch_size=batch_size,
             learning_rate=learning_rate,
             seed=seed,
+            score=score,
+            patience=patience,
             progress=progress,
         )
     finally:
@@ -123,6 +159,8 @@ def _train(
     batch_size: int,
     learning_rate: float,
     seed: int,
+    score: Callable[[np.ndarray], float] | None,
+    patience: int,
     progress: Progress,
 ) -> tuple[np.ndarray, dict[str, Any]]:
     import torch
@@ -139,6 +177,9 @@ def _train(
     nid = torch.from_numpy(np.asarray(neg_ids, dtype=np.int64).reshape(n, k))
     steps_per_epoch = -(-n // batch_size)
     history, step, started = [], 0, time.perf_counter()
+    best_w = np.eye(dim, dtype=np.float32)
+    best = {"epoch": 0, "score": score(best_w)} if score else None
+    dev_history = [{"epoch": 0, "score": round(best["score"], 6)}] if best else []
     for epoch in range(epochs):
         order = torch.randperm(n, generator=gen)
         total = 0.0
@@ -157,16 +198,33 @@ def _train(
             step += 1
             progress.step("training adapter", step, epochs * steps_per_epoch)
         history.append({"step": step, "epoch": epoch + 1, "loss": round(total / n, 6)})
+        with torch.no_grad():
+            w = matrix(params).numpy().astype(np.float32)
+        if best is None:
+            best_w = w
+            continue
+        value = score(w)
+        dev_history.append({"epoch": epoch + 1, "score": round(value, 6)})
+        if value > best["score"]:
+            best, best_w = {"epoch": epoch + 1, "score": value}, w
+        elif patience and epoch + 1 - best["epoch"] >= patience:
+            break
     seconds = time.perf_counter() - started
-    with torch.no_grad():
-        w = matrix(params).numpy().astype(np.float32)
     stats = {
         "steps": step,
+        "epochs_run": len(history),
         "seconds": round(seconds, 2),
         "final_loss": history[-1]["loss"] if history else None,
         "loss_history": history,
     }
-    return w, stats
+    if best is not None:
+        stats |= {
+            "best_epoch": best["epoch"],
+            "dev_score": round(best["score"], 6),
+            "dev_identity": dev_history[0]["score"],
+            "dev_history": dev_history,
+        }
+    return best_w, stats
 
 
 def save_adapter(path: Path, w: np.ndarray, *, side: str, rank: int) -> None:

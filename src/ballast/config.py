@@ -249,7 +249,7 @@ class TrainConfig:
     adapter_side: str = "query"  # "query" keeps a document index valid; or "both"
     adapter_rank: int = 0  # 0 = a full d x d matrix; else W = I + U V^T of this rank
     adapter_epochs: int = 30
-    adapter_learning_rate: float = 1e-3
+    adapter_learning_rate: float = 1e-4
     lora_rank: int = 8
     lora_alpha: float = 16.0
     loss: str = "mnrl"  # or "cached_mnrl" (GradCache, Gao et al. 2021)
@@ -259,6 +259,7 @@ class TrainConfig:
     matryoshka_dims: tuple[int, ...] = ()
     # Every eval_steps steps, score the dev split by gate.primary_metric and keep the best
     # checkpoint; stop after early_stopping_patience scores without a gain (0 = never stop).
+    # mode = "adapter" scores dev after every epoch without eval_steps (the patience in epochs).
     eval_steps: int = 0
     early_stopping_patience: int = 0
     bf16: bool = False  # bfloat16 autocast on the CPU (docs/training.md has the measurements)
@@ -288,7 +289,7 @@ class TrainConfig:
             _fail("train.mode", self.mode, "'full' or 'lora' when train.matryoshka_dims is set")
         _range("train.eval_steps", self.eval_steps, 0, 10**9)
         _range("train.early_stopping_patience", self.early_stopping_patience, 0, 10_000)
-        if self.early_stopping_patience and not self.eval_steps:
+        if self.early_stopping_patience and not self.eval_steps and self.mode != "adapter":
             _fail(
                 "train.eval_steps", 0, "a number of steps > 0 when early_stopping_patience is set"
             )

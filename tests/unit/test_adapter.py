@@ -142,3 +142,66 @@ def test_hard_negative_that_is_another_rows_positive_is_masked() -> None:
     # row 0 sees only its own positive: loss 0; row 1 (query e1) scores 0 against its positive
     # e0 and the masked copy is gone: loss 0 as well (a single candidate)
     assert float(loss) == pytest.approx(0.0, abs=1e-6)
+
+
+def _fit_scored(q, p, score, epochs: int = 8, patience: int = 0):
+    n = len(q)
+    return train_adapter(
+        q,
+        p,
+        np.zeros((n, 0, q.shape[1]), np.float32),
+        np.arange(n),
+        np.zeros((n, 0), np.int64),
+        side="query",
+        rank=0,
+        epochs=epochs,
+        batch_size=32,
+        learning_rate=1e-2,
+        seed=0,
+        score=score,
+        patience=patience,
+    )
+
+
+def test_a_map_that_loses_on_dev_is_never_kept() -> None:
+    # the score prefers the identity (any change costs): the identity is what comes back
+    q, p = _planted(200, 16, seed=6)
+    w, stats = _fit_scored(q, p, lambda w: -float(np.abs(w - np.eye(len(w))).sum()))
+    assert np.array_equal(w, np.eye(16, dtype=np.float32))
+    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 8
+    assert [h["epoch"] for h in stats["dev_history"]] == list(range(9))
+
+
+def test_the_best_dev_epoch_is_kept_and_patience_stops() -> None:
+    q_train, p_train = _planted(600, 24, seed=1)
+    q_dev, p_dev = _planted(300, 24, seed=2)
+    seen: list[np.ndarray] = []
+
+    def dev_accuracy(w: np.ndarray) -> float:
+        seen.append(w.copy())
+        return _accuracy(apply(q_dev, w), p_dev)
+
+    w, stats = _fit_scored(q_train, p_train, dev_accuracy, epochs=40)
+    scores = [h["score"] for h in stats["dev_history"]]
+    assert stats["best_epoch"] == int(np.argmax(scores)) > 0
+    assert np.array_equal(w, seen[stats["best_epoch"]])
+    assert stats["dev_score"] > stats["dev_identity"] + 0.2
+    # a score that only falls: stop after `patience` epochs without a gain
+    _, stats = _fit_scored(q_train, p_train, lambda w: -float(np.abs(w).sum()), patience=3)
+    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 3
+
+
+def test_dev_scorer_ranks_like_evaluate() -> None:
+    # two queries, three passages: the identity ranks each query's passage first (nDCG@10 = 1);
+    # a map swapping the first two axes sends query 0 to passage 1 (its passage then at rank
+    # 2: nDCG = 1/log2(3), the textbook discount of Jarvelin & Kekalainen 2002)
+    from ballast.adapter import dev_scorer
+
+    p = np.eye(3, dtype=np.float32)
+    q = _unit(np.array([[1.0, 0.5, 0], [0, 0, 1.0]], np.float32))
+    score = dev_scorer(q, p, ["a", "b", "c"], [{"a": 1}, {"c": 1}], "ndcg@10", "query")
+    assert score(np.eye(3, dtype=np.float32)) == pytest.approx(1.0)
+    swap = np.eye(3, dtype=np.float32)[[1, 0, 2]]
+    assert score(swap) == pytest.approx((1 / np.log2(3) + 1) / 2)
+    both = dev_scorer(q, p, ["a", "b", "c"], [{"a": 1}, {"c": 1}], "ndcg@10", "both")
+    assert both(swap) == pytest.approx(1.0)  # mapping the passages too undoes the swap

@@ -99,8 +99,9 @@ mode = "full"              # "full": fine-tune every weight; "adapter": freeze t
 adapter_side = "query"     # "query": only queries are mapped, so an existing document index
                            # stays valid; "both": queries and documents (re-index)
 adapter_rank = 0           # 0 = a full d x d matrix; else W = I + U V^T of this rank
-adapter_epochs = 30        # the adapter's own epochs and learning rate (plain torch, Adam)
-adapter_learning_rate = 1e-3
+adapter_epochs = 30        # the adapter's own epochs and learning rate (plain torch, Adam);
+adapter_learning_rate = 1e-4  # each epoch is scored on dev and the best map kept, the
+                           # identity included (so it never ships a map that loses on dev)
 lora_rank = 8              # LoRA on the attention query/value projections (Hu et al. 2021);
 lora_alpha = 16.0          # LoRA usually wants a larger learning_rate, like 1e-4
 loss = "mnrl"              # "mnrl" (in-batch negatives) or "cached_mnrl": the same loss in
@@ -111,6 +112,7 @@ matryoshka_dims = []       # e.g. [384, 256, 128, 64]: also train (and evaluate)
 eval_steps = 0             # score dev by gate.primary_metric every N steps and keep the best
                            # checkpoint (needs split.dev_fraction > 0); 0 = off
 early_stopping_patience = 0  # stop after this many dev scores without a gain; 0 = never
+                           # (mode = "adapter" scores dev every epoch: epochs)
 bf16 = false               # bfloat16 autocast on the CPU (see docs/training.md)
 
 [evaluate]

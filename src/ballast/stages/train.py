@@ -54,7 +54,7 @@ def train(run: Run) -> dict[str, Any]:
     train_pool = [p for p in passages if p["doc_id"] in set(splits["documents"]["train"])]
     rng = run.rng("train")
     want = run.cfg.mine.negatives
-    examples, padded = [], 0
+    examples, indexed, padded = [], [], 0
     for qid in splits["queries"]["train"]:
         q = by_qid[qid]
         pos = by_pid[q["passage_id"]]
@@ -67,6 +67,7 @@ def train(run: Run) -> dict[str, Any]:
         examples.append(
             {"anchor": q["text"], "positive": training_positive(q, pos), "negatives": neg}
         )
+        indexed.append(pos["text"])
     if len(examples) < 2:
         raise StageError(
             f"{len(examples)} training pair(s); need at least 2 — add documents "
@@ -79,7 +80,12 @@ def train(run: Run) -> dict[str, Any]:
     work = run.path(".train-work")
     from ..train import process_rank
 
-    dev = dev_set(run, passages, queries, splits) if run.cfg.train.eval_steps else None
+    adapter = run.cfg.train.mode == "adapter"
+    dev = (
+        dev_set(run, passages, queries, splits)
+        if run.cfg.train.eval_steps or (adapter and splits["queries"].get("dev"))
+        else None
+    )
     fit = functools.partial(
         train_model, run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
         work_dir=work, dev=dev, progress=run.progress,
@@ -91,8 +97,8 @@ def train(run: Run) -> dict[str, Any]:
         with tempfile.TemporaryDirectory() as scratch:
             return fit(out_dir=Path(scratch))
     with atomic_dir(run.path("model")) as tmp:
-        if run.cfg.train.mode == "adapter":
-            stats = train_frozen_adapter(run, examples, passages, tmp)
+        if adapter:
+            stats = train_frozen_adapter(run, examples, indexed, passages, dev, tmp)
         else:
             stats = fit(out_dir=tmp)
         write_json(
@@ -115,17 +121,25 @@ def train(run: Run) -> dict[str, Any]:
 
 
 def train_frozen_adapter(
-    run: Run, examples: list[dict], passages: list[dict], out_dir: Path
+    run: Run,
+    examples: list[dict],
+    indexed: list[str],
+    passages: list[dict],
+    dev: Any,
+    out_dir: Path,
 ) -> dict[str, Any]:
     """train.mode = "adapter": a linear map on the base model's cached embeddings.
 
-    The passages' embeddings come from the cache the mine stage filled; the queries and any
-    training positive that differs from its passage (a masked inverse-cloze one) are encoded
-    once (and cached). The folder saved is the base model, plus ``adapter.safetensors``
-    (query side) or plus a Dense and a Normalize module (both sides)."""
+    Each query is pulled towards its passage as the index holds it (``indexed``: the whole
+    passage, not a masked inverse-cloze positive, whose embedding no index contains; measured
+    better on dev, docs/training.md). The passages' embeddings come from the cache the mine
+    stage filled; the queries are encoded once (and cached). With ``dev`` (the dev split has
+    queries) every epoch is scored there and the best map kept, the identity included. The
+    folder saved is the base model, plus ``adapter.safetensors`` (query side) or plus a Dense
+    and a Normalize module (both sides)."""
     import numpy as np
 
-    from ..adapter import ADAPTER_FILE, append_dense, save_adapter, train_adapter
+    from ..adapter import ADAPTER_FILE, append_dense, dev_scorer, save_adapter, train_adapter
     from ..encode import encode_cached
     from ..models import load_encoder
 
@@ -150,18 +164,27 @@ def train_frozen_adapter(
     texts = [p["text"] for p in passages]
     emb = enc(texts, "encoding passages (base)")
     index = {t: i for i, t in enumerate(texts)}
-    extra = sorted(
-        {t for e in examples for t in [e["positive"], *e["negatives"]] if t not in index}
-    )
-    if extra:
-        emb = np.concatenate([emb, enc(extra, "encoding training positives (base)")])
-        index |= {t: len(texts) + i for i, t in enumerate(extra)}
     n_neg = min((len(e["negatives"]) for e in examples), default=0)
-    pos_ids = np.array([index[e["positive"]] for e in examples], dtype=np.int64)
+    pos_ids = np.array([index[t] for t in indexed], dtype=np.int64)
     neg_ids = np.array(
         [[index[t] for t in e["negatives"][:n_neg]] for e in examples], dtype=np.int64
     ).reshape(len(examples), n_neg)
     q_emb = enc([e["anchor"] for e in examples], "encoding training queries (base)")
+    score = None
+    if dev is not None:
+        score = dev_scorer(
+            enc(dev.query_texts, "encoding dev queries (base)"),
+            emb,
+            dev.passage_ids,
+            dev.qrels,
+            dev.metric,
+            cfg.adapter_side,
+        )
+    else:
+        run.progress.info(
+            "train: the dev split has no queries, so the adapter's epochs are not checked; "
+            "the last one is kept"
+        )
     w, stats = train_adapter(
         q_emb,
         emb[pos_ids],
@@ -175,8 +198,15 @@ def train_frozen_adapter(
         learning_rate=cfg.adapter_learning_rate,
         seed=run.cfg.seed,
         threads=cfg.threads or 1,
+        score=score,
+        patience=cfg.early_stopping_patience,
         progress=run.progress,
     )
+    if stats.get("best_epoch") == 0:
+        run.progress.info(
+            f"train: no adapter epoch beat the base model on dev ({dev.metric} "
+            f"{stats['dev_identity']:.4f}); the map saved is the identity"
+        )
     if cfg.adapter_side == "both":
         append_dense(model, w)
     model.save(str(out_dir), create_model_card=False, safe_serialization=True)
@@ -186,12 +216,9 @@ def train_frozen_adapter(
         "adapter_side": cfg.adapter_side,
         "pairs": len(examples),
         "hard_negatives_per_pair": n_neg,
-        "steps": stats["steps"],
-        "seconds": stats["seconds"],
         "pairs_per_second": round(
-            len(examples) * cfg.adapter_epochs / max(stats["seconds"], 1e-9), 3
+            len(examples) * stats["epochs_run"] / max(stats["seconds"], 1e-9), 3
         ),
-        "final_loss": stats["final_loss"],
-        "loss_history": stats["loss_history"],
+        **stats,
         "resumed_from": None,
     }
