@@ -24,13 +24,15 @@ TINY = {
 }
 
 
-def project(root: Path, train: str) -> Path:
+def project(root: Path, train: str, **extra: str) -> Path:
     docs = root / "docs"
     docs.mkdir(parents=True)
     for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:3]:
         text = (DEMO / "docs" / name).read_text("utf-8")
         (docs / name).write_text(text[:3500], "utf-8")
-    return write_config(root, docs, **TINY, train="batch_size = 8\nmax_seq_length = 64\n" + train)
+    return write_config(
+        root, docs, **TINY, **extra, train="batch_size = 8\nmax_seq_length = 64\n" + train
+    )
 
 
 def ballast_run(cfg: Path) -> subprocess.CompletedProcess:
@@ -58,12 +60,14 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     from ballast.adapter import ADAPTER_FILE, apply, query_adapter
     from ballast.models import resolve_model
 
-    cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"')
+    # no dev split: nothing to choose an epoch on, so the last map is kept (and the run says so)
+    cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"', split="dev_fraction = 0")
     proc = ballast_run(cfg)
     assert proc.returncode in (0, 1), proc.stderr
     run = cfg.parent / "run"
     stats = json.loads((run / "train.json").read_text("utf-8"))
     assert stats["mode"] == "adapter" and stats["steps"] > 0
+    assert "best_epoch" not in stats and stats["epochs_run"] == 30
     model = run / "model"
     w = query_adapter(model)
     assert w is not None and not np.allclose(w, np.eye(len(w)))  # it trained
@@ -96,6 +100,12 @@ def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
     assert query_adapter(model) is None  # inside the model, never applied twice
     w, meta = read_adapter(model)
     assert meta["side"] == "both"
+    # the dev split scored every epoch, the identity (epoch 0) first; the best one was kept
+    stats = json.loads((cfg.parent / "run" / "train.json").read_text("utf-8"))
+    scores = [h["score"] for h in stats["dev_history"]]
+    assert [h["epoch"] for h in stats["dev_history"]] == list(range(len(scores)))
+    assert stats["best_epoch"] == int(np.argmax(scores))
+    assert np.array_equal(w, np.eye(len(w))) == (stats["best_epoch"] == 0)
     texts = ["the travel policy", "submitting receipts"]
     base = _encode(resolve_model("packaged:all-MiniLM-L6-v2"), texts)
     got = _encode(model, texts)
