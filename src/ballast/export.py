@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import platform
 import shutil
 from importlib import metadata
@@ -45,29 +44,24 @@ def safe_name(name: str) -> str:
 
 
 def model_facts(model_dir: Path) -> dict[str, Any]:
-    """Dimension, similarity, pooling, normalisation and length, as the loaded model says."""
-    from .models import load_encoder
+    """Dimension, similarity, pooling, normalisation and length, as the loaded model says (for a
+    routed model, its document route: ``routes`` then names the routes)."""
+    from .models import document_route, load_encoder
 
     model = load_encoder(model_dir)
-    modules = json.loads((model_dir / "modules.json").read_text("utf-8"))
-    pooling = None
-    for m in modules:
-        if m.get("type", "").endswith("Pooling"):
-            cfg = json.loads((model_dir / m["path"] / "config.json").read_text("utf-8"))
-            pooling = cfg.get("pooling_mode") or next(
-                (
-                    k.removeprefix("pooling_mode_").removesuffix("_tokens")
-                    for k, v in cfg.items()
-                    if k.startswith("pooling_mode_") and v
-                ),
-                None,
-            )
+    modules = document_route(model)
+    pooling = next(
+        (str(m.pooling_mode) for m in modules if getattr(m, "pooling_mode", None) is not None),
+        None,
+    )
+    routes = getattr(model[0], "sub_modules", None)
     return {
         "dimension": int(model.get_embedding_dimension()),
         "pooling": pooling,
-        "normalized": any(m.get("type", "").endswith("Normalize") for m in modules),
+        "normalized": type(modules[-1]).__name__ == "Normalize",
         "similarity": str(model.similarity_fn_name or "cosine"),
         "max_seq_length": int(model.max_seq_length),
+        "routes": sorted(routes) if routes is not None else None,
     }
 
 

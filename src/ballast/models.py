@@ -69,8 +69,7 @@ def check_model_folder(path: Path) -> None:
         )
     if not weights:
         raise InputError("no .safetensors weights in the model folder", path=path)
-    cfg = path / "config.json"
-    if cfg.is_file():
+    for cfg in sorted(path.rglob("config.json")):  # a routed model keeps its modules in folders
         try:
             data = json.loads(cfg.read_text("utf-8"))
         except (UnicodeDecodeError, json.JSONDecodeError):
@@ -132,3 +131,16 @@ def load_encoder(path: Path, *, max_seq_length: int | None = None) -> Any:
     if max_seq_length is not None:
         model.max_seq_length = max_seq_length
     return model
+
+
+def document_route(model: Any) -> list[Any]:
+    """The modules that embed a document, in order: the model's own for a plain model; the
+    ``document`` route of a sentence-transformers ``Router`` (ballast writes one for a
+    query-side adapter: documents go through the base encoder, queries also through the map)."""
+    first = model[0]
+    routes = getattr(first, "sub_modules", None)
+    if routes is None:
+        return list(model)
+    if "document" not in routes:
+        raise InputError(f"a routed model without a 'document' route (routes: {sorted(routes)})")
+    return [*routes["document"], *list(model)[1:]]

@@ -69,8 +69,8 @@ def _quiet_libraries() -> Iterator[None]:
             logging.getLogger(n or None).setLevel(level)
 
 
-def _pooling_of(model: Any) -> str:
-    for module in model:
+def _pooling_of(modules: list[Any]) -> str:
+    for module in modules:
         mode = getattr(module, "pooling_mode", None)
         if mode is not None:
             mode = str(mode)
@@ -82,15 +82,37 @@ def _pooling_of(model: Any) -> str:
     raise StageError("the model has no Pooling module; ONNX export needs one")
 
 
-def _wrapper(transformer: Any, pooling: str) -> Any:
+def _dense_of(modules: list[Any]) -> np.ndarray | None:
+    """The product of the model's Dense modules after pooling (a both-sides adapter writes one),
+    or None. Only linear ones (no bias, identity activation) fit the graph: a normalisation
+    between them and the final one does not change the direction of ``W x``."""
+    import torch
+
+    w = None
+    for module in modules:
+        if type(module).__name__ != "Dense":
+            continue
+        linear = module.linear
+        if linear.bias is not None or not isinstance(module.activation_function, torch.nn.Identity):
+            raise StageError("ONNX export supports Dense modules without bias or activation only")
+        m = linear.weight.detach().cpu().numpy().astype(np.float32)
+        w = m if w is None else m @ w
+    return w
+
+
+def _wrapper(transformer: Any, pooling: str, dense: np.ndarray | None = None) -> Any:
     import torch
 
     class Embedder(torch.nn.Module):
-        """transformer -> pooling over the attention mask -> L2 normalise."""
+        """transformer -> pooling over the attention mask -> (a linear map) -> L2 normalise."""
 
         def __init__(self) -> None:
             super().__init__()
             self.transformer = transformer
+            if dense is None:
+                self.dense = None
+            else:
+                self.register_buffer("dense", torch.from_numpy(np.ascontiguousarray(dense)))
 
         def forward(self, input_ids, attention_mask, token_type_ids=None):  # type: ignore[no-untyped-def]
             kwargs = {"input_ids": input_ids, "attention_mask": attention_mask}
@@ -104,6 +126,8 @@ def _wrapper(transformer: Any, pooling: str) -> Any:
                 pooled = hidden[:, 0]
             else:
                 pooled = hidden.masked_fill(mask == 0, -1e9).max(dim=1).values
+            if self.dense is not None:
+                pooled = pooled @ self.dense.T
             return torch.nn.functional.normalize(pooled, p=2.0, dim=1)
 
     return Embedder().eval()
@@ -122,18 +146,19 @@ def export_onnx(
     import torch
 
     from .encode import encode
-    from .models import load_encoder
+    from .models import document_route, load_encoder
 
     model = load_encoder(model_dir)
-    pooling = _pooling_of(model)
-    transformer = model[0].auto_model
+    modules = document_route(model)  # a routed model (query-side adapter): the document route
+    pooling = _pooling_of(modules)
+    transformer = modules[0].auto_model
     tokenizer = model.tokenizer
     max_len = int(model.max_seq_length)
     accepted = set(tokenizer.model_input_names)
     names = ["input_ids", "attention_mask"] + (
         ["token_type_ids"] if "token_type_ids" in accepted else []
     )
-    wrapper = _wrapper(transformer, pooling)
+    wrapper = _wrapper(transformer, pooling, _dense_of(modules))
     sample = _tokenize(tokenizer, list(CHECK_TEXTS[:2]), max_len, names)
     args = tuple(torch.from_numpy(sample[n]) for n in names)
     progress.info(f"export: tracing the model into ONNX (opset {OPSET}, {pooling} pooling)")

@@ -87,8 +87,9 @@ def test_int8_is_smaller_and_close(exported: tuple[Path, dict]) -> None:
 @pytest.fixture(scope="module")
 def bundle(tmp_path_factory: pytest.TempPathFactory) -> Path:
     run = make_run(tmp_path_factory.mktemp("onnxrun"), with_model=True)
-    r = runner.invoke(app, ["export", str(run), "--quantize-int8", "--json"],
-                      catch_exceptions=False)
+    r = runner.invoke(
+        app, ["export", str(run), "--quantize-int8", "--json"], catch_exceptions=False
+    )
     assert r.exit_code == 0, r.output
     assert r.stderr == ""  # --json: one JSON document, no progress
     doc = json.loads(r.stdout)["summary"]
@@ -132,8 +133,20 @@ def test_embed_with_the_graphs(bundle: Path, tmp_path: Path) -> None:
     p.write_text("".join(f"d{i}\t{t}\n" for i, t in enumerate(TEXTS)), "utf-8")
     out = {}
     for backend in ("pytorch", "onnx", "onnx-int8"):
-        r = runner.invoke(app, ["embed", str(bundle), str(p), "-o", str(tmp_path / backend),
-                                "--backend", backend, "-q"], catch_exceptions=False)
+        r = runner.invoke(
+            app,
+            [
+                "embed",
+                str(bundle),
+                str(p),
+                "-o",
+                str(tmp_path / backend),
+                "--backend",
+                backend,
+                "-q",
+            ],
+            catch_exceptions=False,
+        )
         assert r.exit_code == 0, r.output
         out[backend] = np.load(tmp_path / f"{backend}.npy")
     assert np.abs(out["onnx"] - out["pytorch"]).max() <= 1e-5
@@ -152,3 +165,27 @@ def test_readme_onnx_code_runs(bundle: Path) -> None:
         ["passage text", "another passage"], normalize_embeddings=True
     )
     assert np.abs(scope["vectors"] - want).max() <= 1e-5
+
+
+def test_a_linear_map_after_pooling_is_inside_the_graph(tmp_path: Path) -> None:
+    # a both-sides adapter appends Dense(W, no bias) and Normalize: the graph must compute
+    # normalize(W pooled), checked here on texts the export never saw (common practice: the
+    # exported graph reproduces the PyTorch model)
+    from ballast.adapter import append_dense
+    from ballast.models import load_encoder
+    from ballast.onnx_export import export_onnx
+
+    model = load_encoder(base_model_dir())
+    w = np.eye(384, dtype=np.float32) + 0.2 * np.random.default_rng(3).standard_normal(
+        (384, 384)
+    ).astype(np.float32)
+    append_dense(model, w)
+    folder = tmp_path / "mapped"
+    model.save(str(folder), create_model_card=False, safe_serialization=True)
+    export_onnx(folder, folder / "model.onnx")
+    got = run_graph(folder / "model.onnx", folder, TEXTS, model.max_seq_length)
+    base = load_encoder(base_model_dir()).encode(TEXTS, normalize_embeddings=True)
+    want = base @ w.T
+    want /= np.linalg.norm(want, axis=1, keepdims=True)
+    assert np.abs(got - want).max() <= 1e-5
+    assert np.abs(got - base).max() > 0.05  # the map is really applied

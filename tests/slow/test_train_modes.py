@@ -58,7 +58,8 @@ def _bundle(run: Path) -> Path:
 
 def test_query_side_adapter(tmp_path: Path) -> None:
     from ballast.adapter import ADAPTER_FILE, apply, query_adapter
-    from ballast.models import resolve_model
+    from ballast.models import load_encoder, resolve_model
+    from ballast.onnx_export import export_onnx
 
     # no dev split: nothing to choose an epoch on, so the last map is kept (and the run says so)
     cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"', split="dev_fraction = 0")
@@ -75,6 +76,14 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     texts = [json.loads(x)["text"] for x in (run / "passages.jsonl").read_text().splitlines()][:4]
     base = resolve_model("packaged:all-MiniLM-L6-v2")
     assert np.array_equal(_encode(model, texts), _encode(base, texts))
+    # ... and the folder is one sentence-transformers model with a query route that applies the
+    # map itself (a Router sharing the encoder: its weights are stored once)
+    loaded = load_encoder(model, max_seq_length=64)
+    q_texts = ["how do I file an expense claim?", "who signs off a travel request?"]
+    mapped = loaded.encode_query(q_texts, normalize_embeddings=True)
+    assert np.allclose(mapped, apply(_encode(base, q_texts), w), atol=1e-5)
+    assert np.allclose(loaded.encode_document(texts), _encode(base, texts), atol=1e-6)
+    assert len([p for p in model.rglob("model.safetensors") if p.stat().st_size > 10**7]) == 1
     # evaluation ranked with mapped queries: the tuned run differs from the base run
     metrics = json.loads((run / "metrics.json").read_text("utf-8"))
     assert "tuned" in metrics["splits"]["test"]["models"]
@@ -83,8 +92,13 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     assert apply(q, w).shape == q.shape
     manifest = json.loads((_bundle(run) / "manifest.json").read_text("utf-8"))
     facts = manifest["model"]["adapter"]
-    assert facts["side"] == "query" and facts["file"] == ADAPTER_FILE
+    assert facts["side"] == "query" and facts["file"] == ADAPTER_FILE and facts["in_model"]
+    assert manifest["model"]["routes"] == ["document", "query"]
+    assert manifest["model"]["pooling"] == "mean" and manifest["model"]["normalized"]
     assert (_bundle(run) / ADAPTER_FILE).is_file()
+    # the ONNX graph of a routed model is its document route (export checks it within 1e-5)
+    info = export_onnx(model, tmp_path / "model.onnx")
+    assert info["dimension"] == len(w)
 
 
 def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
@@ -112,6 +126,10 @@ def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
     want = base @ w.T
     want /= np.linalg.norm(want, axis=1, keepdims=True)
     assert np.allclose(got, want, atol=1e-5)
+    # the ONNX graph holds the map too (export checks it against PyTorch within 1e-5)
+    from ballast.onnx_export import export_onnx
+
+    assert export_onnx(model, cfg.parent / "model.onnx")["dimension"] == len(w)
 
 
 def test_lora_merges_into_a_plain_model(tmp_path: Path) -> None:

@@ -103,7 +103,9 @@ def test_query_side_keeps_passage_embeddings(tmp_path) -> None:
     got = query_adapter(tmp_path)
     assert got is not None and np.array_equal(got, w)
     facts = adapter_facts(tmp_path)
-    assert facts["side"] == "query" and facts["dim"] == 16 and not facts["in_model"]
+    # in the model's query route (a Router the train stage writes); the note says who applies it
+    assert facts["side"] == "query" and facts["dim"] == 16 and facts["in_model"]
+    assert "encode_query" in facts["note"]
     assert len(facts["sha256"]) == 64
     # the adapter is only ever applied to queries: the passages the index holds are untouched,
     # and retrieval scores are mapped query x base passage

@@ -135,11 +135,20 @@ def train_frozen_adapter(
     better on dev, docs/training.md). The passages' embeddings come from the cache the mine
     stage filled; the queries are encoded once (and cached). With ``dev`` (the dev split has
     queries) every epoch is scored there and the best map kept, the identity included. The
-    folder saved is the base model, plus ``adapter.safetensors`` (query side) or plus a Dense
-    and a Normalize module (both sides)."""
+    folder saved is the base model plus a Dense and a Normalize module: on the query route of a
+    sentence-transformers ``Router`` (query side; plain ``encode`` is the base model, the
+    document encoder) or for every text (both sides); ``adapter.safetensors`` holds the matrix
+    either way."""
     import numpy as np
 
-    from ..adapter import ADAPTER_FILE, append_dense, dev_scorer, save_adapter, train_adapter
+    from ..adapter import (
+        ADAPTER_FILE,
+        append_dense,
+        dev_scorer,
+        route_queries,
+        save_adapter,
+        train_adapter,
+    )
     from ..encode import encode_cached
     from ..models import load_encoder
 
@@ -209,6 +218,8 @@ def train_frozen_adapter(
         )
     if cfg.adapter_side == "both":
         append_dense(model, w)
+    else:
+        model = route_queries(model, w)
     model.save(str(out_dir), create_model_card=False, safe_serialization=True)
     save_adapter(out_dir / ADAPTER_FILE, w, side=cfg.adapter_side, rank=cfg.adapter_rank)
     return {
