@@ -108,11 +108,28 @@ def weights_hash(path: Path) -> dict[str, str]:
     }
 
 
+def tokenizer_dir(path: Path) -> Path:
+    """The folder holding a model's tokenizer: the model folder, or for a routed model (a
+    ``Router``, see ``document_route``) the folder of its document route's first module."""
+    router = Path(path) / "router_config.json"
+    if not router.is_file():
+        return Path(path)
+    try:
+        first = json.loads(router.read_text("utf-8"))["structure"]["document"][0]
+    except (UnicodeDecodeError, json.JSONDecodeError, KeyError, IndexError, TypeError):
+        raise InputError(
+            "expected a 'structure' with a 'document' route", path=router, field="structure"
+        ) from None
+    return Path(path) / str(first)
+
+
 def load_tokenizer(path: Path) -> Any:
     _offline()
     from transformers import AutoTokenizer
 
-    return AutoTokenizer.from_pretrained(str(path), local_files_only=True, trust_remote_code=False)
+    return AutoTokenizer.from_pretrained(
+        str(tokenizer_dir(path)), local_files_only=True, trust_remote_code=False
+    )
 
 
 def load_encoder(path: Path, *, max_seq_length: int | None = None) -> Any:

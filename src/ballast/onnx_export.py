@@ -146,7 +146,7 @@ def export_onnx(
     import torch
 
     from .encode import encode
-    from .models import document_route, load_encoder
+    from .models import document_route, load_encoder, tokenizer_dir
 
     model = load_encoder(model_dir)
     modules = document_route(model)  # a routed model (query-side adapter): the document route
@@ -191,10 +191,12 @@ def export_onnx(
             f"{out}: the ONNX graph differs from the PyTorch model by {diff:.2e} "
             f"(allowed {tolerance:.0e}); not exported"
         )
+    tokenizer_file = (tokenizer_dir(model_dir) / "tokenizer.json").relative_to(model_dir)
     return {
         "path": out.name,
         "opset": OPSET,
         "inputs": names,
+        "tokenizer": tokenizer_file.as_posix(),
         "output": OUTPUT,
         "pooling": pooling,
         "normalized": True,

@@ -59,7 +59,7 @@ def _bundle(run: Path) -> Path:
 def test_query_side_adapter(tmp_path: Path) -> None:
     from ballast.adapter import ADAPTER_FILE, apply, query_adapter
     from ballast.models import load_encoder, resolve_model
-    from ballast.onnx_export import export_onnx
+    from ballast.onnx_export import export_onnx, open_onnx
 
     # no dev split: nothing to choose an epoch on, so the last map is kept (and the run says so)
     cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"', split="dev_fraction = 0")
@@ -97,8 +97,11 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     assert manifest["model"]["pooling"] == "mean" and manifest["model"]["normalized"]
     assert (_bundle(run) / ADAPTER_FILE).is_file()
     # the ONNX graph of a routed model is its document route (export checks it within 1e-5)
-    info = export_onnx(model, tmp_path / "model.onnx")
+    info = export_onnx(model, model / "model.onnx")
     assert info["dimension"] == len(w)
+    assert info["tokenizer"] != "tokenizer.json" and (model / info["tokenizer"]).is_file()
+    graph = open_onnx(model, "model.onnx", int(info["max_seq_length"]))
+    assert np.allclose(graph.encode(texts), _encode(base, texts), atol=1e-5)
 
 
 def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
