@@ -2,6 +2,8 @@
 one ``<out>.parquet`` with columns ``id`` and ``embedding``. Files are written atomically.
 
 The vectors are unit-normalised, as in ballast's evaluation, so the gated metrics hold for them.
+With ``queries=True`` the texts are queries: a query-side adapter's matrix is applied to them
+(with any backend), as ballast's evaluation applied it.
 """
 
 from __future__ import annotations
@@ -68,6 +70,22 @@ def _encoder(bundle: Path, manifest: dict[str, Any], backend: str) -> tuple[Any,
     return enc, enc.dimension
 
 
+class _QueryEncoder:
+    """Embeds queries: the bundle's encoder, then a query-side adapter's matrix if it has one
+    (what the routed model's ``encode_query`` computes; the ONNX graph is the document route)."""
+
+    def __init__(self, encoder: Any, bundle: Path) -> None:
+        from .adapter import query_adapter
+
+        self.encoder, self.w = encoder, query_adapter(bundle)
+
+    def encode(self, texts: list[str], **kw: Any) -> np.ndarray:
+        from .adapter import apply
+
+        emb = self.encoder.encode(texts, **kw)
+        return emb if self.w is None else apply(emb, self.w)
+
+
 def embed_file(
     bundle: Path,
     passages: Path,
@@ -76,9 +94,11 @@ def embed_file(
     fmt: str = "npy",
     backend: str = "pytorch",
     batch_size: int = 64,
+    queries: bool = False,
     progress: Progress = SILENT,
 ) -> dict[str, Any]:
-    """Encode every passage of ``passages`` (JSONL id/text or TSV id<TAB>text) into ``out``."""
+    """Encode every text of ``passages`` (JSONL id/text or TSV id<TAB>text) into ``out``: as
+    passages, or as queries (``queries=True``)."""
     from .trec import read_texts
     from .verify import read_manifest
 
@@ -109,6 +129,9 @@ def embed_file(
     if gate.get("forced") or gate.get("passed") is False:
         progress.info("warning: this bundle did not pass its release gate (exported with --force)")
     encoder, dim = _encoder(bundle, manifest, backend)
+    what = "queries" if queries else "passages"
+    if queries:
+        encoder = _QueryEncoder(encoder, bundle)
     texts = [t for _, t in rows]
     name = out.name.removesuffix(".npy").removesuffix(".parquet")
     written: list[Path] = []
@@ -122,7 +145,7 @@ def embed_file(
             for start in range(0, len(texts), batch_size):
                 chunk = texts[start : start + batch_size]
                 arr[start : start + len(chunk)] = encoder.encode(chunk, batch_size=batch_size)
-                progress.step("embedding passages", start + len(chunk), len(texts))
+                progress.step(f"embedding {what}", start + len(chunk), len(texts))
             arr.flush()
             del arr
         write_text_atomic(ids_path, "".join(i + "\n" for i in ids))
@@ -137,7 +160,7 @@ def embed_file(
         for start in range(0, len(texts), batch_size):
             chunk = texts[start : start + batch_size]
             parts.append(np.asarray(encoder.encode(chunk, batch_size=batch_size), np.float32))
-            progress.step("embedding passages", start + len(chunk), len(texts))
+            progress.step(f"embedding {what}", start + len(chunk), len(texts))
         emb = np.concatenate(parts) if parts else np.zeros((0, dim), np.float32)
         values = pa.array(emb.reshape(-1), type=pa.float32())
         table = pa.table(
@@ -150,6 +173,7 @@ def embed_file(
                 "ballast.bundle": f"{manifest.get('name')}-{manifest.get('version')}",
                 "ballast.backend": backend,
                 "ballast.normalized": "true",
+                "ballast.texts": what,
             }
         )
         buf = io.BytesIO()
@@ -160,6 +184,7 @@ def embed_file(
     return {
         "bundle": str(bundle),
         "passages": len(ids),
+        "texts": what,
         "dimension": dim,
         "backend": backend,
         "format": fmt,

@@ -96,6 +96,17 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     assert manifest["model"]["routes"] == ["document", "query"]
     assert manifest["model"]["pooling"] == "mean" and manifest["model"]["normalized"]
     assert (_bundle(run) / ADAPTER_FILE).is_file()
+    # `ballast embed --queries` maps queries as encode_query does; passages stay the base model's
+    from ballast.embed import embed_file
+
+    rows = tmp_path / "texts.jsonl"
+    rows.write_text(
+        "".join(json.dumps({"id": str(i), "text": t}) + "\n" for i, t in enumerate(q_texts))
+    )
+    embed_file(_bundle(run), rows, tmp_path / "q", queries=True)
+    embed_file(_bundle(run), rows, tmp_path / "p")
+    assert np.allclose(np.load(tmp_path / "q.npy"), mapped, atol=1e-5)
+    assert np.allclose(np.load(tmp_path / "p.npy"), _encode(base, q_texts), atol=1e-5)
     # the ONNX graph of a routed model is its document route (export checks it within 1e-5)
     info = export_onnx(model, model / "model.onnx")
     assert info["dimension"] == len(w)

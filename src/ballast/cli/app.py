@@ -322,8 +322,9 @@ def embed_command(
     out: Annotated[
         Path,
         typer.Option(
-            "--out", "-o", help="Output path without extension: OUT.npy + OUT.ids.txt, or "
-            "OUT.parquet."
+            "--out",
+            "-o",
+            help="Output path without extension: OUT.npy + OUT.ids.txt, or OUT.parquet.",
         ),
     ] = Path("embeddings"),
     fmt: Annotated[str, typer.Option("--format", help="npy or parquet.")] = "npy",
@@ -331,10 +332,15 @@ def embed_command(
         str, typer.Option("--backend", help="pytorch, onnx or onnx-int8 (if exported).")
     ] = "pytorch",
     batch_size: Annotated[int, typer.Option("--batch-size", help="Texts per batch.")] = 64,
+    queries: Annotated[
+        bool,
+        typer.Option("--queries", help="The texts are queries (a query-side adapter maps them)."),
+    ] = False,
     as_json: Json = False,
     quiet: Quiet = False,
 ) -> None:
-    """Write the bundle's embeddings of a passages file, in batches, with progress."""
+    """Write the bundle's embeddings of a passages (or queries) file, in batches, with
+    progress."""
     from ..embed import embed_file
 
     try:
@@ -345,6 +351,7 @@ def embed_command(
             fmt=fmt,
             backend=backend,
             batch_size=batch_size,
+            queries=queries,
             progress=StderrProgress(quiet or as_json),
         )
     except BallastError as exc:
@@ -353,7 +360,7 @@ def embed_command(
         emit_json(result)
     else:
         typer.echo(
-            f"embedded {result['passages']} passages ({result['dimension']}-d, "
+            f"embedded {result['passages']} {result['texts']} ({result['dimension']}-d, "
             f"{result['backend']}): {', '.join(result['files'])}"
         )
 
