@@ -223,6 +223,7 @@ def _train(
             "dev_score": round(best["score"], 6),
             "dev_identity": dev_history[0]["score"],
             "dev_history": dev_history,
+            "stopped_early": len(history) < epochs,
         }
     return best_w, stats
 

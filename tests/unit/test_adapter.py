@@ -170,7 +170,7 @@ def test_a_map_that_loses_on_dev_is_never_kept() -> None:
     q, p = _planted(200, 16, seed=6)
     w, stats = _fit_scored(q, p, lambda w: -float(np.abs(w - np.eye(len(w))).sum()))
     assert np.array_equal(w, np.eye(16, dtype=np.float32))
-    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 8
+    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 8 and not stats["stopped_early"]
     assert [h["epoch"] for h in stats["dev_history"]] == list(range(9))
 
 
@@ -190,7 +190,7 @@ def test_the_best_dev_epoch_is_kept_and_patience_stops() -> None:
     assert stats["dev_score"] > stats["dev_identity"] + 0.2
     # a score that only falls: stop after `patience` epochs without a gain
     _, stats = _fit_scored(q_train, p_train, lambda w: -float(np.abs(w).sum()), patience=3)
-    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 3
+    assert stats["best_epoch"] == 0 and stats["epochs_run"] == 3 and stats["stopped_early"]
 
 
 def test_dev_scorer_ranks_like_evaluate() -> None:
