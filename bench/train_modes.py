@@ -9,7 +9,8 @@ training seconds and pairs per second, and base vs tuned nDCG@10 with its 95% in
 gated splits (the demo: ``test`` and ``human``, its invented staff questions; the Debian FAQ
 set: ``human_heldout``, real questions about documents the model never trained on).
 
-- ``full``: every weight (the default); ``full_bf16``: the same under bfloat16 autocast;
+- ``full``: every weight (the default mode), in float32; ``full_bf16``: the same under bfloat16
+  autocast;
 - ``lora``: LoRA rank 8 on the attention query/value projections (Hu et al. 2021), learning
   rate 1e-4 (LoRA's usual larger rate);
 - ``adapter``: frozen encoder, a query-side linear map on cached embeddings.
@@ -33,7 +34,7 @@ from bench import faq_gain
 
 ROOT = Path(__file__).resolve().parent.parent
 MODES: dict[str, list[str]] = {
-    "full": [],
+    "full": ["train.bf16=false"],  # float32 on any machine ("auto" turns bf16 on where native)
     "full_bf16": ["train.bf16=true"],
     "lora": ['train.mode="lora"', "train.learning_rate=1e-4"],
     "adapter": ['train.mode="adapter"'],

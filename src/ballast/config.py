@@ -262,7 +262,10 @@ class TrainConfig:
     # mode = "adapter" scores dev after every epoch without eval_steps (the patience in epochs).
     eval_steps: int = 0
     early_stopping_patience: int = 0
-    bf16: bool = False  # bfloat16 autocast on the CPU (docs/training.md has the measurements)
+    # bfloat16 autocast: true, false, or "auto" (on where the hardware has bfloat16 arithmetic:
+    # a CPU with AVX-512 BF16 or AMX, a GPU that supports it). docs/training.md: no loss of
+    # quality measured; emulated on other CPUs it is ~19x slower, so "auto" leaves it off there.
+    bf16: bool | str = "auto"
 
     def __post_init__(self) -> None:
         if self.mode not in ("full", "adapter", "lora"):
@@ -514,6 +517,10 @@ def _coerce(key: str, value: Any, tp: Any) -> Any:
     if tp is bool:
         if not isinstance(value, bool):
             _fail(key, value, "true or false")
+        return value
+    if tp == bool | str:  # a switch with an "auto" setting
+        if not isinstance(value, bool) and value != "auto":
+            _fail(key, value, 'true, false or "auto"')
         return value
     if tp is int:
         if isinstance(value, bool) or not isinstance(value, int):

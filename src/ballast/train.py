@@ -36,6 +36,19 @@ def cpu_bf16_native() -> bool:
     return "avx512_bf16" in flags or "amx_bf16" in flags
 
 
+def use_bf16(setting: bool | str) -> bool:
+    """``train.bf16`` resolved: true or false as set; "auto" is on where bfloat16 arithmetic is
+    native (a CUDA GPU that supports it, or a CPU with AVX-512 BF16 or AMX) and off elsewhere,
+    where emulated autocast is much slower (docs/training.md)."""
+    if setting != "auto":
+        return bool(setting)
+    import torch
+
+    if torch.cuda.is_available():
+        return bool(torch.cuda.is_bf16_supported())
+    return cpu_bf16_native()
+
+
 def _callback(progress: Progress, history: list[dict]) -> Any:
     from transformers import TrainerCallback
 
@@ -173,7 +186,8 @@ def train_model(
     if cfg.eval_steps and dev is None:
         raise ValueError("train.eval_steps needs a dev set")
     world = process_rank()[1]
-    if cfg.bf16 and not torch.cuda.is_available() and not cpu_bf16_native():
+    bf16 = use_bf16(cfg.bf16)
+    if bf16 and not torch.cuda.is_available() and not cpu_bf16_native():
         progress.info(
             "train.bf16: this CPU has no bfloat16 instructions (avx512_bf16, amx_bf16); "
             "autocast is emulated and likely slower than float32"
@@ -225,7 +239,7 @@ def train_model(
         # torchrun on CPUs: gloo; on GPUs the trainer picks NCCL itself
         ddp_backend="gloo" if not torch.cuda.is_available() and world > 1 else None,
         dataloader_num_workers=0,
-        bf16=cfg.bf16,
+        bf16=bf16,
         **dev_args,
     )
     history: list[dict] = []
@@ -284,6 +298,7 @@ def train_model(
         "loss_history": history,
         "resumed_from": Path(resume).name if resume else None,
         "matryoshka_dims": list(cfg.matryoshka_dims),
-        "bf16": cfg.bf16,
-        "bf16_native": cpu_bf16_native() if cfg.bf16 else None,
+        "bf16": bf16,
+        "bf16_setting": cfg.bf16,
+        "bf16_native": cpu_bf16_native() if bf16 else None,
     } | dev_info

@@ -138,7 +138,8 @@ def test_unknown_top_level_key_and_section() -> None:
             "a multiple of train.eval_steps (10)",
         ),
         ({"train": {"eval_steps": 5, "mode": "adapter"}}, "train.mode", "train.eval_steps"),
-        ({"train": {"bf16": 1}}, "train.bf16", "true or false"),
+        ({"train": {"bf16": 1}}, "train.bf16", 'true, false or "auto"'),
+        ({"train": {"bf16": "yes"}}, "train.bf16", 'true, false or "auto"'),
         ({"evaluate": {"encode_devices": ["gpu0"]}}, "evaluate.encode_devices", "'cuda:0'"),
     ],
 )

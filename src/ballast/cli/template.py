@@ -113,7 +113,8 @@ eval_steps = 0             # score dev by gate.primary_metric every N steps and 
                            # checkpoint (needs split.dev_fraction > 0); 0 = off
 early_stopping_patience = 0  # stop after this many dev scores without a gain; 0 = never
                            # (mode = "adapter" scores dev every epoch: epochs)
-bf16 = false               # bfloat16 autocast on the CPU (see docs/training.md)
+bf16 = "auto"              # bfloat16 autocast: true, false, or "auto": on where bfloat16 is
+                           # native (AVX-512 BF16 / AMX CPUs, GPUs), off where it is emulated
 
 [evaluate]
 splits = ["dev", "test"]   # add "human" when synth.questions is set
