@@ -48,6 +48,19 @@ def rank(
     return [[pids[i] for i in row] for row in idx.tolist()], scores
 
 
+def mean_metric(
+    q_emb: np.ndarray,
+    p_emb: np.ndarray,
+    pids: list[str],
+    qrels: list[dict[str, int]],
+    metric: str,
+) -> float:
+    """The mean ``metric`` of the queries ranked over the whole corpus, as ``ballast evaluate``
+    ranks them (ties by passage id); ``qrels`` in the queries' order."""
+    ranked, _ = rank(q_emb, p_emb, pids, parse_metric(metric).k)
+    return float(compute([metric], ranked, qrels)[metric].mean())
+
+
 def truncate(emb: np.ndarray, dim: int) -> np.ndarray:
     """The first ``dim`` dimensions of each embedding, unit-normalised again (how a
     Matryoshka-trained embedding is used at a smaller size; Kusupati et al. 2022)."""

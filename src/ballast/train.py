@@ -108,10 +108,7 @@ def _dev_evaluator(dev: DevSet, history: list[dict]) -> Any:
     from sentence_transformers.base.evaluation import BaseEvaluator
 
     from .encode import encode
-    from .evaluate import rank
-    from .metrics import compute, parse_metric
-
-    k = parse_metric(dev.metric).k
+    from .evaluate import mean_metric
 
     class DevEvaluator(BaseEvaluator):
         def __init__(self) -> None:
@@ -121,8 +118,7 @@ def _dev_evaluator(dev: DevSet, history: list[dict]) -> Any:
         def __call__(self, model, output_path=None, epoch=-1, steps=-1):  # noqa: ANN001
             p_emb = encode(model, dev.passage_texts, batch_size=dev.batch_size)
             q_emb = encode(model, dev.query_texts, batch_size=dev.batch_size)
-            ranked, _ = rank(q_emb, p_emb, dev.passage_ids, k)
-            value = float(compute([dev.metric], ranked, dev.qrels)[dev.metric].mean())
+            value = mean_metric(q_emb, p_emb, dev.passage_ids, dev.qrels, dev.metric)
             history.append(
                 {"step": int(steps), "epoch": round(float(epoch), 4), dev.metric: round(value, 6)}
             )

@@ -42,12 +42,10 @@ def measure_int8(
     progress: Any,
 ) -> dict[str, Any]:
     """The metric with each encoder and how closely their embeddings agree."""
-    from ..evaluate import rank
-    from ..metrics import compute, parse_metric
+    from ..evaluate import mean_metric
 
     pids, ptexts = corpus
     qids, qtexts = queries
-    k = parse_metric(metric).k
     emb = {}
     for name, enc in (("fp32", fp32), ("int8", int8)):
         emb[name] = (
@@ -64,12 +62,8 @@ def measure_int8(
                 progress=progress,
             ),
         )
-    values = {}
-    for name, (p, q) in emb.items():
-        ranked, _ = rank(q, p, pids, k)
-        values[name] = float(
-            np.mean(compute([metric], ranked, [qrels.get(x, {}) for x in qids])[metric])
-        )
+    rels = [qrels.get(x, {}) for x in qids]
+    values = {name: mean_metric(q, p, pids, rels, metric) for name, (p, q) in emb.items()}
     a = np.concatenate(emb["fp32"])
     b = np.concatenate(emb["int8"])
     cos = np.sum(a * b, axis=1) / np.maximum(
