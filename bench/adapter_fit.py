@@ -41,14 +41,13 @@ def _recorder(scorers: dict, curve: list[dict[str, float]]):  # noqa: ANN202
 
 
 def main(argv: list[str] | None = None) -> int:
-    from ballast.adapter import dev_scorer, train_adapter
     from ballast.config import load_run_config
-    from ballast.encode import encode_cached
-    from ballast.files import read_jsonl
-    from ballast.models import load_encoder
-    from ballast.splits import qrels_for
+    from ballast.core.records import qrels_for, training_positive
+    from ballast.io.files import read_jsonl
+    from ballast.models.encode import encode_cached
+    from ballast.models.loading import load_encoder
     from ballast.stages import Run
-    from ballast.synth.extractive import training_positive
+    from ballast.stages.train.adapter import dev_scorer, train_adapter
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("run_dir", type=Path)

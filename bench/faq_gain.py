@@ -170,10 +170,10 @@ def tuned_scores(run_dir: Path, split: str = "human_heldout") -> dict[str, float
 
 def paired_tuned(a: Path, b: Path, split: str = "human_heldout", seed: int = 0) -> dict:
     """Tuned model of run ``b`` against tuned model of run ``a`` on the same queries: the
-    paired bootstrap interval and randomization test ballast's evaluation uses (ballast.stats)."""
+    paired bootstrap interval and randomization test ballast's evaluation uses (ballast.core.stats)."""
     import numpy as np
 
-    from ballast.stats import compare
+    from ballast.core.stats import compare
 
     sa, sb = tuned_scores(a, split), tuned_scores(b, split)
     qids = sorted(sa)

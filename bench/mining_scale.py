@@ -44,8 +44,8 @@ def unit_vectors(n: int, rng: np.random.Generator, chunk: int = 10_000) -> np.nd
 
 def child(n: int, engine: str, out: str) -> None:
     from ballast.config import MineConfig
-    from ballast.mining import LazyShingles, mine_one
-    from ballast.search import top_k, top_k_faiss
+    from ballast.core.mining import LazyShingles, mine_one
+    from ballast.core.search import top_k, top_k_faiss
 
     rng = np.random.default_rng(0)
     corpus = unit_vectors(n, rng)

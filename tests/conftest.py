@@ -3,10 +3,14 @@
 from __future__ import annotations
 
 import json
+import os
 import shutil
 from pathlib import Path
 
 import pytest
+
+# A stage that reads a config key its declaration does not list fails the test that ran it.
+os.environ["BALLAST_STRICT_READS"] = "1"
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "data_demo"

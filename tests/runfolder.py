@@ -13,12 +13,12 @@ from pathlib import Path
 import numpy as np
 
 from ballast.config import GateConfig, build_config
-from ballast.evaluate import EvalSet, per_query_rows, summarise
-from ballast.files import write_json, write_jsonl
-from ballast.gate import decide
-from ballast.metrics import compute
+from ballast.core.gate import decide
+from ballast.core.metrics import compute
+from ballast.io.files import write_json, write_jsonl
+from ballast.io.trec import format_qrels, format_run
 from ballast.stages.evaluate import write_evaluation
-from ballast.trec import format_qrels, format_run
+from ballast.stages.evaluate.compute import EvalSet, per_query_rows, summarise
 
 SCRIPT = "<script>alert(1)</script>"
 MACHINES = ["press", "mill", "pump", "chiller", "filler", "labeller", "washer", "boiler"]

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from .config import Config, load_config  # noqa: E402
-from .errors import BallastError, ConfigError, GateFailed, InputError  # noqa: E402
-from .gate import decide  # noqa: E402
-from .metrics import compute, parse_metric  # noqa: E402
-from .stats import compare  # noqa: E402
+from ballast.config import Config, load_config
+from ballast.core.errors import BallastError, ConfigError, GateFailed, InputError
+from ballast.core.gate import decide
+from ballast.core.metrics import compute, parse_metric
+from ballast.core.stats import compare
 
 __all__ = [
     "BallastError",

@@ -1,130 +1,68 @@
 """Stage chaining: fingerprints, done markers, and skipping what is unchanged.
 
-A stage's fingerprint hashes its name, ballast's version, the config sections it reads, and the
-contents of its inputs. ``<stage>.done.json`` is written last; a stage without it is not done.
+A stage's fingerprint hashes its name, ballast's version, the config keys its declaration
+(``STAGE`` in its package) lists, the contents of its run-folder inputs and of what it reads
+from outside the run folder. ``<stage>.done.json`` is written last; a stage without it is not
+done. Each stage runs against a config view that records the keys it reads: a key read but not
+declared means its fingerprint is incomplete, so the stage is not marked done (it runs again
+next time) and, with ``BALLAST_STRICT_READS=1`` (the tests), the run fails.
 """
 
 from __future__ import annotations
 
 import json
+import os
 import time
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from . import __version__
-from .export import library_versions
-from .files import fingerprint_obj, fingerprint_tree, remove_stale_temps, write_json
-from .stages import STAGE_FUNCS, Run
+from ballast import __version__
+from ballast.config.record import covered, unwrap
+from ballast.core.errors import StageError
+from ballast.io.files import fingerprint_obj, fingerprint_tree, remove_stale_temps, write_json
+from ballast.io.lock import run_lock
+from ballast.io.manifest import library_versions
+from ballast.stages import ORDER, STAGES, Run, Stage
 
-ORDER = ("ingest", "synth", "split", "mine", "train", "evaluate", "gate", "report", "export")
-
-
-@dataclass(frozen=True)
-class StageSpec:
-    name: str
-    sections: tuple[str, ...]  # config sections (and top-level keys) the stage reads
-    inputs: tuple[str, ...]  # run-folder files it reads
-    outputs: tuple[str, ...]  # run-folder files or folders it writes
-    base_model: bool = False
+STRICT_READS = "BALLAST_STRICT_READS"
 
 
-SPECS = {
-    "ingest": StageSpec("ingest", ("ingest", "base_model"), (), ("passages.jsonl",), True),
-    "synth": StageSpec("synth", ("synth", "seed"), ("passages.jsonl",), ("queries.jsonl",)),
-    "split": StageSpec(
-        "split", ("split", "seed"), ("passages.jsonl", "queries.jsonl"), ("splits.json", "qrels")
-    ),
-    "mine": StageSpec(
-        "mine",
-        ("mine", "seed", "train.max_seq_length", "evaluate.batch_size"),
-        ("passages.jsonl", "queries.jsonl", "splits.json"),
-        ("negatives.jsonl", "negatives_sample.md"),
-        True,
-    ),
-    "train": StageSpec(
-        "train",
-        ("train", "seed", "mine.negatives", "evaluate.batch_size"),
-        ("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
-        ("model", "train.json"),
-        True,
-    ),
-    "evaluate": StageSpec(
-        "evaluate",
-        ("evaluate", "seed", "train.max_seq_length"),
-        ("passages.jsonl", "queries.jsonl", "splits.json", "model"),
-        ("metrics.json", "per_query.csv", "runs"),
-        True,
-    ),
-    "gate": StageSpec("gate", ("gate",), ("metrics.json",), ("gate.json",)),
-    "report": StageSpec(
-        "report",
-        ("name", "guard"),
-        (
-            "metrics.json",
-            "per_query.csv",
-            "runs",
-            "qrels",
-            "gate.json",
-            "train.json",
-            "queries.jsonl",
-            "passages.jsonl",
-            *(f"{s}.done.json" for s in ("ingest", "synth", "split", "mine", "train")),
-        ),
-        ("report.html", "report.md"),
-    ),
-    "export": StageSpec("export", ("export", "name"), ("model", "gate.json", "metrics.json"), ()),
-}
-
-
-def _config_part(run: Run, keys: tuple[str, ...]) -> dict[str, Any]:
-    d = run.cfg.to_dict()
+def config_part(cfg: dict[str, Any], keys: tuple[str, ...]) -> dict[str, Any]:
+    """The values of ``keys`` (dotted keys or whole sections) in a config dict."""
     out = {}
     for k in keys:
-        cur: Any = d
+        cur: Any = cfg
         for part in k.split("."):
             cur = cur[part]
         out[k] = cur
     return out
 
 
-def external_inputs(run: Run, stage: str) -> dict[str, str]:
-    """Fingerprints of inputs that live outside the run folder."""
-    out = {}
-    if stage == "ingest":
-        out["docs"] = (
-            fingerprint_tree(run.cfg.ingest.docs)
-            if Path(run.cfg.ingest.docs).exists()
-            else "missing"
-        )
-    if stage == "synth" and run.cfg.synth.questions:
-        q = Path(run.cfg.synth.questions)
-        out["questions"] = fingerprint_tree(q) if q.exists() else "missing"
-    if stage == "synth":
-        from .synth.generate import outside_inputs
-
-        out |= outside_inputs(run)
-    if stage == "mine" and run.cfg.mine.rescorer_model:
-        r = Path(run.cfg.mine.rescorer_model)
-        out["rescorer_model"] = fingerprint_tree(r) if r.exists() else str(r)  # or packaged:
-    if SPECS[stage].base_model:
-        out["base_model"] = run.base_fp
-    return out
+def declared_keys(stage: Stage) -> tuple[str, ...]:
+    """The config keys a stage's fingerprint covers (a stage that loads the base model depends
+    on ``base_model`` too)."""
+    keys = stage.keys
+    if stage.base_model and "base_model" not in keys:
+        keys = (*keys, "base_model")
+    return keys
 
 
-def fingerprint(run: Run, stage: str) -> tuple[str, dict[str, Any]]:
-    spec = SPECS[stage]
+def fingerprint(run: Run, name: str) -> tuple[str, dict[str, Any]]:
+    stage = STAGES[name]
     inputs = {
-        name: fingerprint_tree(run.path(name)) if run.path(name).exists() else "missing"
-        for name in spec.inputs
+        n: fingerprint_tree(run.path(n)) if run.path(n).exists() else "missing"
+        for n in stage.inputs
     }
-    inputs |= external_inputs(run, stage)
+    if stage.external is not None:
+        inputs |= stage.external(run)
+    if stage.base_model:
+        inputs["base_model"] = run.base_fp
     parts = {
-        "stage": stage,
+        "stage": name,
         "ballast": __version__,
-        "config": _config_part(run, spec.sections),
+        "config": config_part(unwrap(run.cfg).to_dict(), declared_keys(stage)),
         "inputs": inputs,
-        "force": run.force_export if stage == "export" else False,
+        "force": run.force_export if name == "export" else False,
     }
     return fingerprint_obj(parts), parts
 
@@ -143,7 +81,7 @@ def is_current(run: Run, stage: str, fp: str) -> dict[str, Any] | None:
         return None
     if done.get("fingerprint") != fp:
         return None
-    if not all(run.path(o).exists() for o in SPECS[stage].outputs):
+    if not all(run.path(o).exists() for o in STAGES[stage].outputs):
         return None
     return done
 
@@ -151,14 +89,13 @@ def is_current(run: Run, stage: str, fp: str) -> dict[str, Any] | None:
 def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str, Any]:
     """Run one stage; with ``skip_unchanged``, reuse its last result if nothing changed.
 
-    Under torchrun (PyTorch DDP) only the train stage may run; every process trains, and only
-    rank 0 writes files."""
-    from .train import process_rank
+    The run folder is locked for the whole stage (a second process is refused). Under torchrun
+    (PyTorch DDP) only the train stage may run; every process trains, and only rank 0 writes
+    files (and takes the lock)."""
+    from ballast.stages.train.full import process_rank
 
     rank, world = process_rank()
     if world > 1:
-        from .errors import StageError
-
         if stage != "train":
             raise StageError(
                 f"only `ballast train` runs under torchrun (WORLD_SIZE={world}); run the "
@@ -166,29 +103,48 @@ def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str
             )
         if rank != 0:
             started = time.perf_counter()
-            summary = STAGE_FUNCS[stage](run)
+            summary = STAGES[stage].run(run)
             seconds = round(time.perf_counter() - started, 3)
             return {"stage": stage, "skipped": False, "seconds": seconds, "summary": summary}
+    run.dir.mkdir(parents=True, exist_ok=True)
+    with run_lock(run.dir):
+        return _run_locked(run, stage, skip_unchanged)
+
+
+def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
+    spec = STAGES[stage]
     fp, parts = fingerprint(run, stage)
     if skip_unchanged and stage != "export":
         done = is_current(run, stage, fp)
         if done is not None:
             run.progress.info(f"{stage}: unchanged, skipped")
             return {"stage": stage, "skipped": True, "summary": done["summary"]}
-    run.dir.mkdir(parents=True, exist_ok=True)
     done_path(run, stage).unlink(missing_ok=True)
-    for out in SPECS[stage].outputs:  # what a killed run of this stage left half-built
+    for out in spec.outputs:  # what a killed run of this stage left half-built
         remove_stale_temps(run.dir, Path(out).name)
-    write_json(run.path("config.json"), run.cfg.to_dict())
+    write_json(run.path("config.json"), unwrap(run.cfg).to_dict())
+    reads: set[str] = set()
     started = time.perf_counter()
-    summary = STAGE_FUNCS[stage](run)
+    summary = spec.run(run.recording(reads))
     seconds = round(time.perf_counter() - started, 3)
+    keys = declared_keys(spec)
+    undeclared = sorted(k for k in reads if not covered(k, keys))
+    if undeclared:
+        message = (
+            f"{stage}: read config key(s) {', '.join(undeclared)} that its declaration does not "
+            "list, so its fingerprint misses them; it will run again next time (a bug in "
+            "ballast: please report it)"
+        )
+        if os.environ.get(STRICT_READS) == "1":
+            raise RuntimeError(message)
+        run.progress.info(message)
     write_json(
         done_path(run, stage),
         {
             "stage": stage,
-            "fingerprint": fp,
+            "fingerprint": None if undeclared else fp,
             **parts,
+            "keys_read": sorted(reads),
             "libraries": library_versions(),
             "seconds": seconds,
             "summary": summary,
@@ -198,7 +154,18 @@ def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str
 
 
 def run_all(run: Run, *, stop_before: str | None = None) -> list[dict[str, Any]]:
-    """Every stage in order, skipping unchanged ones; stops after the gate if it failed."""
+    """Every stage in order, skipping unchanged ones; stops after the gate if it failed. The run
+    folder stays locked from the first stage to the last."""
+    from ballast.stages.train.full import process_rank
+
+    if process_rank()[1] > 1:
+        return _run_all(run, stop_before)
+    run.dir.mkdir(parents=True, exist_ok=True)
+    with run_lock(run.dir):
+        return _run_all(run, stop_before)
+
+
+def _run_all(run: Run, stop_before: str | None) -> list[dict[str, Any]]:
     results = []
     for stage in ORDER:
         if stage == stop_before:

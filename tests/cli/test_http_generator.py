@@ -466,7 +466,7 @@ def test_interrupted_run_resumes_without_regenerating(tmp_path: Path, serve, mon
 def test_changing_a_prompt_regenerates_only_its_style(tmp_path: Path, serve, monkeypatch) -> None:
     monkeypatch.setenv(ENV, KEY)
     server = serve(good)
-    from ballast.synth.prompts import default_prompts_dir
+    from ballast.stages.synth.prompts import default_prompts_dir
 
     prompts = tmp_path / "prompts"
     prompts.mkdir()

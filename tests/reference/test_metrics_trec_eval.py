@@ -1,4 +1,4 @@
-"""ballast.metrics against outside sources: trec_eval, Wikipedia's DCG example, scikit-learn."""
+"""ballast.core.metrics against outside sources: trec_eval, Wikipedia's DCG example, scikit-learn."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from pytest import approx
 
-from ballast.metrics import (
+from ballast.core.metrics import (
     hit_rate_at_k,
     map_at_k,
     mrr_at_k,

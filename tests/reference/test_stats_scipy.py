@@ -1,4 +1,4 @@
-"""ballast.stats against scipy.stats, statsmodels (if installed) and a hand-worked Holm example."""
+"""ballast.core.stats against scipy.stats, statsmodels (if installed) and a hand-worked Holm example."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import pytest
 from pytest import approx
 from scipy import stats as sps
 
-from ballast.stats import compare, holm, paired_bootstrap_ci, randomization_test
+from ballast.core.stats import compare, holm, paired_bootstrap_ci, randomization_test
 
 
 def _paired(seed: int, n: int = 60, shift: float = 0.04) -> tuple[np.ndarray, np.ndarray]:

@@ -1,4 +1,4 @@
-"""ballast.metrics on trec_eval's own published test files (usnistgov/trec_eval, test/).
+"""ballast.core.metrics on trec_eval's own published test files (usnistgov/trec_eval, test/).
 
 Source: trec_eval's published test files, test/qrels.comment.test and
 test/results.comment.test, copied byte for byte into data/trec_eval/ (see NOTICE.md there).
@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 from pytest import approx
 
-from ballast.metrics import (
+from ballast.core.metrics import (
     compute,
     map_at_k,
     mrr_at_k,

@@ -49,8 +49,8 @@ def test_two_process_training_writes_one_model(tmp_path: Path) -> None:
     assert (run.dir / "model" / "model.safetensors").is_file()
     assert not list(run.dir.glob(".tmp*")) and not (run.dir / ".train-work").exists()
     # The trained model loads and differs from the base model.
-    from ballast.encode import encode
-    from ballast.models import load_encoder
+    from ballast.models.encode import encode
+    from ballast.models.loading import load_encoder
 
     texts = ["how is the press cleaned?"]
     tuned = encode(load_encoder(run.dir / "model"), texts)

@@ -35,7 +35,7 @@ TEXTS = [
 
 @pytest.fixture(scope="module")
 def exported(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict]:
-    from ballast.onnx_export import export_onnx
+    from ballast.models.onnx import export_onnx
 
     model = tmp_path_factory.mktemp("onnx") / "model"
     shutil.copytree(base_model_dir(), model)
@@ -72,7 +72,7 @@ def test_graph_matches_pytorch_within_1e5(exported: tuple[Path, dict]) -> None:
 
 
 def test_int8_is_smaller_and_close(exported: tuple[Path, dict]) -> None:
-    from ballast.onnx_export import quantize_int8
+    from ballast.models.onnx import quantize_int8
 
     model_dir, _ = exported
     quantize_int8(model_dir / "model.onnx", model_dir / "model_int8.onnx")
@@ -171,9 +171,9 @@ def test_a_linear_map_after_pooling_is_inside_the_graph(tmp_path: Path) -> None:
     # a both-sides adapter appends Dense(W, no bias) and Normalize: the graph must compute
     # normalize(W pooled), checked here on texts the export never saw (common practice: the
     # exported graph reproduces the PyTorch model)
-    from ballast.adapter import append_dense
-    from ballast.models import load_encoder
-    from ballast.onnx_export import export_onnx
+    from ballast.models.loading import load_encoder
+    from ballast.models.onnx import export_onnx
+    from ballast.models.query_map import append_dense
 
     model = load_encoder(base_model_dir())
     w = np.eye(384, dtype=np.float32) + 0.2 * np.random.default_rng(3).standard_normal(

@@ -46,8 +46,8 @@ def ballast_run(cfg: Path) -> subprocess.CompletedProcess:
 
 
 def _encode(model_dir: Path, texts: list[str]) -> np.ndarray:
-    from ballast.encode import encode
-    from ballast.models import load_encoder
+    from ballast.models.encode import encode
+    from ballast.models.loading import load_encoder
 
     return encode(load_encoder(model_dir, max_seq_length=64), texts)
 
@@ -57,9 +57,10 @@ def _bundle(run: Path) -> Path:
 
 
 def test_query_side_adapter(tmp_path: Path) -> None:
-    from ballast.adapter import ADAPTER_FILE, apply, query_adapter
-    from ballast.models import load_encoder, resolve_model
-    from ballast.onnx_export import export_onnx, open_onnx
+    from ballast.core.scoring import apply
+    from ballast.models.loading import load_encoder, resolve_model
+    from ballast.models.onnx import export_onnx, open_onnx
+    from ballast.models.query_map import ADAPTER_FILE, query_adapter
 
     # no dev split: nothing to choose an epoch on, so the last map is kept (and the run says so)
     cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "query"', split="dev_fraction = 0")
@@ -97,7 +98,7 @@ def test_query_side_adapter(tmp_path: Path) -> None:
     assert manifest["model"]["pooling"] == "mean" and manifest["model"]["normalized"]
     assert (_bundle(run) / ADAPTER_FILE).is_file()
     # `ballast embed --queries` maps queries as encode_query does; passages stay the base model's
-    from ballast.embed import embed_file
+    from ballast.bundle.embed import embed_file
 
     rows = tmp_path / "texts.jsonl"
     rows.write_text(
@@ -116,8 +117,8 @@ def test_query_side_adapter(tmp_path: Path) -> None:
 
 
 def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
-    from ballast.adapter import query_adapter, read_adapter
-    from ballast.models import resolve_model
+    from ballast.models.loading import resolve_model
+    from ballast.models.query_map import query_adapter, read_adapter
 
     cfg = project(tmp_path, 'mode = "adapter"\nadapter_side = "both"\nadapter_rank = 16')
     proc = ballast_run(cfg)
@@ -141,7 +142,7 @@ def test_both_sides_adapter_is_one_model(tmp_path: Path) -> None:
     want /= np.linalg.norm(want, axis=1, keepdims=True)
     assert np.allclose(got, want, atol=1e-5)
     # the ONNX graph holds the map too (export checks it against PyTorch within 1e-5)
-    from ballast.onnx_export import export_onnx
+    from ballast.models.onnx import export_onnx
 
     assert export_onnx(model, cfg.parent / "model.onnx")["dimension"] == len(w)
 
@@ -197,8 +198,8 @@ def test_matryoshka_and_best_dev_checkpoint(tmp_path: Path) -> None:
 def test_multi_process_encoding_matches_one_process() -> None:
     """evaluate.encode_devices: sentence-transformers' own multi-process encoding, here two CPU
     processes, gives the embeddings one process gives, in the same order."""
-    from ballast.encode import device_pool, encode
-    from ballast.models import load_encoder, resolve_model
+    from ballast.models.encode import device_pool, encode
+    from ballast.models.loading import load_encoder, resolve_model
 
     model = load_encoder(resolve_model("packaged:all-MiniLM-L6-v2"), max_seq_length=64)
     texts = [f"passage {i}: the press is rinsed after batch {i}" for i in range(37)]

@@ -1,4 +1,4 @@
-"""ballast.adapter: the residual linear map on frozen embeddings (common practice: identity
+"""ballast.stages.train.adapter: the residual linear map on frozen embeddings (common practice: identity
 initialisation of a residual map, MultipleNegativesRankingLoss's in-batch softmax; the planted
 distortion is a synthetic check that the map can undo a linear change of the query space)."""
 
@@ -7,17 +7,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from ballast.adapter import (
+from ballast.core.scoring import apply, transform
+from ballast.models.query_map import (
     ADAPTER_FILE,
     adapter_facts,
-    apply,
-    init_params,
-    matrix,
     query_adapter,
     save_adapter,
-    train_adapter,
-    transform,
 )
+from ballast.stages.train.adapter import init_params, matrix, train_adapter
 
 
 def _unit(x: np.ndarray) -> np.ndarray:
@@ -133,7 +130,7 @@ def test_hard_negative_that_is_another_rows_positive_is_masked() -> None:
     # so the loss at the identity is log(number of other distinct docs + 1), not more
     import torch
 
-    from ballast.adapter import _batch_loss
+    from ballast.stages.train.adapter import _batch_loss
 
     q = torch.eye(3)[:2]
     docs = torch.eye(3)[[0, 0]]
@@ -197,7 +194,7 @@ def test_dev_scorer_ranks_like_evaluate() -> None:
     # two queries, three passages: the identity ranks each query's passage first (nDCG@10 = 1);
     # a map swapping the first two axes sends query 0 to passage 1 (its passage then at rank
     # 2: nDCG = 1/log2(3), the textbook discount of Jarvelin & Kekalainen 2002)
-    from ballast.adapter import dev_scorer
+    from ballast.stages.train.adapter import dev_scorer
 
     p = np.eye(3, dtype=np.float32)
     q = _unit(np.array([[1.0, 0.5, 0], [0, 0, 1.0]], np.float32))

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-import ballast.train as train
+import ballast.stages.train.full as train
 from ballast.config import TrainConfig
 
 

@@ -1,4 +1,4 @@
-"""ballast.corpus (readers, normalising, chunking, ids) and ballast.files (strict reading, atomic
+"""ballast.stages.ingest.documents (readers, normalising, chunking, ids) and ballast.io.files (strict reading, atomic
 writes). Common practice throughout; a whitespace token counter stands in for the tokenizer."""
 
 from __future__ import annotations
@@ -12,17 +12,9 @@ from hypothesis import strategies as st
 
 from ballast import InputError
 from ballast.config import IngestConfig
-from ballast.corpus import (
-    chunk_sentences,
-    collapse,
-    ingest,
-    normalise,
-    parse_html,
-    parse_markdown,
-    passage_id,
-    split_sentences,
-)
-from ballast.files import atomic_dir, read_jsonl, write_json, write_jsonl, write_text_atomic
+from ballast.core.text import collapse, normalise, passage_id, split_sentences
+from ballast.io.files import atomic_dir, read_jsonl, write_json, write_jsonl, write_text_atomic
+from ballast.stages.ingest.documents import chunk_sentences, ingest, parse_html, parse_markdown
 
 
 def count(texts: list[str]) -> list[int]:

@@ -1,4 +1,4 @@
-"""ballast.synth.filters: pure filters over generated queries.
+"""ballast.stages.synth.filters: pure filters over generated queries.
 
 Round-trip consistency as in Dai et al. (ICLR 2023): keep a generated query only if the
 retriever ranks its passage within the top k. The n-gram overlap measure, the chatter patterns
@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import pytest
 
-from ballast.synth.filters import (
+from ballast.stages.synth.filters import (
     RULES,
     chatter_reason,
     copy_overlap,

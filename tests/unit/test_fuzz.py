@@ -10,10 +10,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from ballast.config import IngestConfig, load_config
-from ballast.corpus import ingest
-from ballast.errors import ConfigError, InputError
-from ballast.synth import import_questions
-from ballast.trec import read_qrels, read_texts
+from ballast.core.errors import ConfigError, InputError
+from ballast.io.trec import read_qrels, read_texts
+from ballast.stages.ingest.documents import ingest
+from ballast.stages.synth.human import import_questions
 
 SETTINGS = settings(max_examples=60, deadline=None,
                     suppress_health_check=[HealthCheck.function_scoped_fixture])

@@ -11,9 +11,10 @@ from __future__ import annotations
 import numpy as np
 
 from ballast.config import GateConfig
-from ballast.evaluate import rank, summarise_split
-from ballast.gate import decide
-from ballast.metrics import compute
+from ballast.core.gate import decide
+from ballast.core.metrics import compute
+from ballast.core.scoring import rank
+from ballast.stages.evaluate.compute import summarise_split
 
 N_PASSAGES, DIM, N_QUERIES = 300, 24, 120
 METRICS = ["ndcg@10", "mrr@10"]

@@ -1,4 +1,4 @@
-"""Hand-computed cases for ballast.metrics (common practice: definitions applied by hand)."""
+"""Hand-computed cases for ballast.core.metrics (common practice: definitions applied by hand)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from pytest import approx
 
-from ballast.metrics import (
+from ballast.core.metrics import (
     METRICS,
     MetricSpec,
     compute,

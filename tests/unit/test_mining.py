@@ -1,4 +1,4 @@
-"""ballast.mining: positive-aware hard-negative mining (Moreira et al. 2024, "NV-Retriever:
+"""ballast.core.mining: positive-aware hard-negative mining (Moreira et al. 2024, "NV-Retriever:
 Improving text embedding models with effective hard-negative mining": drop candidates scoring
 above a fraction of the positive's score, or above the positive's score minus a margin), inside
 a rank window of the base ranking; near-copies of the positive by word 3-gram Jaccard (the
@@ -13,12 +13,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from ballast.config import MineConfig
-from ballast.mining import (
+from ballast.core.mining import (
     LazyShingles,
     jaccard,
     mine_one,
     sampling_order,
     screen,
+    screen_queries,
     second_opinion,
     shingles,
     take,
@@ -453,7 +454,7 @@ def test_audit_markdown_shows_texts_rules_and_is_seeded() -> None:
 )
 def test_mine_settings_are_checked(data: dict, key: str, allowed: str) -> None:
     from ballast.config import build_config
-    from ballast.errors import ConfigError
+    from ballast.core.errors import ConfigError
 
     with pytest.raises(ConfigError) as info:
         build_config({"mine": data})
@@ -466,3 +467,34 @@ def test_rescorer_model_resolves_against_the_config_file(tmp_path) -> None:
     path = tmp_path / "c.toml"
     path.write_text('[mine]\nrescorer = "cross-encoder"\nrescorer_model = "models/ce"\n')
     assert load_config(path).mine.rescorer_model == str(tmp_path / "models" / "ce")
+
+
+def test_the_stage_loop_screens_each_query_and_draws_in_order() -> None:
+    """screen_queries (the mine stage's loop, models left out) gives every query what screen and
+    sampling_order give it alone, with one rng drawn from query after query; a passage judged
+    relevant to a query (a human question naming several) is dropped as a positive, never taken
+    as its negative (common practice: a judged-relevant passage is no negative)."""
+    cfg = MineConfig(negatives=2, window_end=6, max_relative=0.0, sample="random")
+    n = 8
+    doc_of = [f"d{i}" for i in range(n)]
+    text_key = [f"t{i}" for i in range(n)]
+    sh = LazyShingles([f"passage number {i} about topic {i}" for i in range(n)])
+    ranked = np.array([[0, 1, 2, 3, 4, 5, 6, 7], [7, 6, 5, 4, 3, 2, 1, 0], [3, 1, 4, 0, 5, 2, 6, 7]])
+    scores = np.sort(np.random.default_rng(1).uniform(0.1, 0.9, (3, n)), axis=1)[:, ::-1]
+    positives, pos_scores = [0, 7, 3], [0.95, 0.95, 0.95]
+    relevant = [frozenset({0, 2}), frozenset({7}), frozenset({3})]
+    orders, dropped = screen_queries(
+        ranked, scores, positives, pos_scores, relevant,
+        doc_of=doc_of, text_key=text_key, cfg=cfg, rng=np.random.default_rng(5), shingles_of=sh,
+    )  # fmt: skip
+    rng = np.random.default_rng(5)
+    for qi in range(3):
+        eligible, gone = screen(
+            ranked[qi], scores[qi], positives[qi], pos_scores[qi], doc_of=doc_of,
+            text_key=text_key, cfg=cfg, shingles_of=sh, also_relevant=relevant[qi],
+        )  # fmt: skip
+        assert orders[qi] == sampling_order(eligible, cfg.negatives, cfg.sample, rng)
+        assert dropped[qi] == gone
+    assert {d["index"]: d["rule"] for d in dropped[0]} == {0: "positive", 2: "positive"}
+    assert 2 not in {c["index"] for c in take(orders[0], cfg.negatives)}
+    assert all(len(take(o, cfg.negatives)) == 2 for o in orders)

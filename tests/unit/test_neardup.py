@@ -1,4 +1,4 @@
-"""ballast.neardup and the bounded-memory leakage audit, checked against the plain computation:
+"""ballast.core.neardup and the bounded-memory leakage audit, checked against the plain computation:
 Python sets of string shingles (``corpus.shingles``) compared pair by pair."""
 
 from __future__ import annotations
@@ -10,16 +10,16 @@ import numpy as np
 import pytest
 
 from ballast import InputError
-from ballast.corpus import shingles
-from ballast.files import read_jsonl, read_text
-from ballast.neardup import (
+from ballast.core.neardup import (
     RarestFirst,
     ShingleHasher,
     prefix_lengths,
     shingle_sets,
     similar_pairs,
 )
-from ballast.splits import leakage_audit
+from ballast.core.splits import leakage_audit
+from ballast.core.text import shingles
+from ballast.io.files import read_jsonl, read_text
 
 WORDS = "press rinse cold water batch dried storage tank cider mill label line".split()
 

@@ -3,6 +3,7 @@ and its command, and its place in the pipeline (after the gate, before export, p
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -13,9 +14,15 @@ from typer.testing import CliRunner
 from ballast import pipeline
 from ballast.cli import app
 from ballast.config import load_run_config
-from ballast.report import ReportInputs, k_curves, parse_run, render_html, render_markdown
 from ballast.stages import Run
 from ballast.stages.report import gather
+from ballast.stages.report.page import (
+    ReportInputs,
+    k_curves,
+    parse_run,
+    render_html,
+    render_markdown,
+)
 from tests.runfolder import SCRIPT, make_run
 
 runner = CliRunner()
@@ -122,7 +129,8 @@ def test_run_writes_the_report_and_still_refuses_export(
     )
     # the earlier stages' files are already in the folder: stand-ins that leave them as they are
     for stage in ("ingest", "synth", "split", "mine", "train", "evaluate", "gate"):
-        monkeypatch.setitem(pipeline.STAGE_FUNCS, stage, lambda run: {"stand_in": True})
+        stand_in = dataclasses.replace(pipeline.STAGES[stage], run=lambda run: {"stand_in": True})
+        monkeypatch.setitem(pipeline.STAGES, stage, stand_in)
     r = runner.invoke(app, ["run", str(cfg), "--json"], catch_exceptions=False)
     assert r.exit_code == 1  # the gate failed: exit 1, as before the report stage existed
     doc = json.loads(r.stdout)

@@ -1,4 +1,4 @@
-"""ballast.rescore and the mine stage's second opinion, on tiny randomly initialised models built
+"""ballast.stages.mine.rescore and the mine stage's second opinion, on tiny randomly initialised models built
 here (no cross-encoder or small causal LM ships in any package): the plumbing, not the quality.
 Query likelihood follows Sachan et al. 2022 (UPR): the mean log-probability of the query tokens
 given the passage; it is checked against the same sum computed by hand without padding."""
@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from ballast.errors import InputError
+from ballast.core.errors import InputError
 
 torch = pytest.importorskip("torch")
 transformers = pytest.importorskip("transformers")
@@ -66,7 +66,7 @@ def causal_lm(tmp_path_factory) -> Path:
 
 
 def test_cross_encoder_scores_probabilities_independent_of_batching(cross_encoder: Path) -> None:
-    from ballast.rescore import load_rescorer
+    from ballast.stages.mine.rescore import load_rescorer
 
     r = load_rescorer("cross-encoder", cross_encoder)
     together = r.score(PAIRS)
@@ -79,7 +79,7 @@ def test_cross_encoder_scores_probabilities_independent_of_batching(cross_encode
 def test_cross_encoder_with_two_outputs_is_refused(tmp_path: Path) -> None:
     from transformers import BertConfig, BertForSequenceClassification
 
-    from ballast.rescore import CrossEncoderRescorer
+    from ballast.stages.mine.rescore import CrossEncoderRescorer
 
     tok = _tokenizer()
     cfg = BertConfig(
@@ -93,7 +93,7 @@ def test_cross_encoder_with_two_outputs_is_refused(tmp_path: Path) -> None:
 
 
 def test_folders_that_are_unsafe_or_missing_are_refused(tmp_path: Path) -> None:
-    from ballast.rescore import load_rescorer
+    from ballast.stages.mine.rescore import load_rescorer
 
     with pytest.raises(InputError, match="not found"):
         load_rescorer("cross-encoder", tmp_path / "nope")
@@ -111,7 +111,7 @@ def test_folders_that_are_unsafe_or_missing_are_refused(tmp_path: Path) -> None:
 
 
 def test_a_gguf_file_is_taken_for_query_likelihood(tmp_path: Path) -> None:
-    from ballast.rescore import _check_folder
+    from ballast.stages.mine.rescore import _check_folder
 
     (tmp_path / "m.gguf").write_bytes(b"GGUF")
     assert _check_folder(tmp_path, gguf_ok=True) == tmp_path / "m.gguf"
@@ -123,7 +123,7 @@ def test_a_gguf_file_is_taken_for_query_likelihood(tmp_path: Path) -> None:
 
 
 def test_a_language_model_spec_may_name_the_gguf_file(tmp_path: Path) -> None:
-    from ballast.rescore import locate_language_model
+    from ballast.stages.mine.rescore import locate_language_model
 
     (tmp_path / "m.gguf").write_bytes(b"GGUF")
     assert locate_language_model(str(tmp_path / "m.gguf")) == (tmp_path, tmp_path / "m.gguf")
@@ -134,7 +134,7 @@ def test_a_language_model_spec_may_name_the_gguf_file(tmp_path: Path) -> None:
 
 
 def test_query_likelihood_equals_the_unpadded_sum(causal_lm: Path) -> None:
-    from ballast.rescore import QueryLikelihoodRescorer
+    from ballast.stages.mine.rescore import QueryLikelihoodRescorer
 
     r = QueryLikelihoodRescorer(causal_lm, max_passage_tokens=64)
     got = r.score(PAIRS)  # batched, left-padded, longest first
@@ -150,7 +150,7 @@ def test_query_likelihood_equals_the_unpadded_sum(causal_lm: Path) -> None:
 
 
 def test_query_likelihood_holds_few_logits_at_once(causal_lm: Path) -> None:
-    from ballast.rescore import QueryLikelihoodRescorer
+    from ballast.stages.mine.rescore import QueryLikelihoodRescorer
 
     small = QueryLikelihoodRescorer(causal_lm, logits_budget=1)  # one pair a batch
     big = QueryLikelihoodRescorer(causal_lm)
@@ -164,8 +164,8 @@ def test_query_likelihood_holds_few_logits_at_once(causal_lm: Path) -> None:
 def test_second_opinion_drops_what_it_rates_high_and_reports_cost(
     kind: str, cross_encoder: Path, causal_lm: Path
 ) -> None:
-    from ballast.mining import second_opinion
-    from ballast.rescore import Cost, Timed, load_rescorer
+    from ballast.core.mining import second_opinion
+    from ballast.stages.mine.rescore import Cost, Timed, load_rescorer
 
     path = cross_encoder if kind == "cross-encoder" else causal_lm
     cost = Cost(kind)
@@ -238,7 +238,7 @@ def _toy_run(folder: Path) -> None:
 
 def test_mine_stage_writes_negatives_audit_and_cost(tmp_path: Path, cross_encoder: Path) -> None:
     from ballast.config import Config, MineConfig
-    from ballast.pipeline import external_inputs
+    from ballast.pipeline import fingerprint
     from ballast.stages import Run
     from ballast.stages.mine import mine
 
@@ -276,7 +276,7 @@ def test_mine_stage_writes_negatives_audit_and_cost(tmp_path: Path, cross_encode
     assert cost["seconds"] > 0 and cost["positives_scored"] == 9
     md = (tmp_path / "negatives_sample.md").read_text("utf-8")
     assert md.count("## ") == 9 and "**same_text**" in md and "every single morning" in md
-    assert "rescorer_model" in external_inputs(run, "mine")
+    assert "rescorer_model" in fingerprint(run, "mine")[1]["inputs"]
     # same seed, same files
     before = (tmp_path / "negatives.jsonl").read_bytes()
     mine(Run(cfg))

@@ -1,4 +1,4 @@
-"""ballast.search.top_k against a brute-force oracle: a full sort of every score by
+"""ballast.core.search.top_k against a brute-force oracle: a full sort of every score by
 (-score, id), the tie-break STYLE.md asks for (as sentence-transformers does). Embeddings hold
 small integers, so every dot product is exact and ties are frequent. FAISS's exact
 inner-product search (faiss.knn, the kernel behind IndexFlatIP) must give the same ranking."""
@@ -10,7 +10,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ballast.search import choose_engine, id_ranks, search, top_k, top_k_faiss
+from ballast.core.search import choose_engine, id_ranks, search, top_k, top_k_faiss
 
 
 def brute_force(q: np.ndarray, c: np.ndarray, k: int, ids: list[str]) -> tuple[list, list]:

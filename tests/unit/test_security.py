@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 
 from ballast.config import load_config
-from ballast.errors import ConfigError, InputError
-from ballast.export import safe_name
-from ballast.models import check_model_folder, resolve_model
+from ballast.core.errors import ConfigError, InputError
+from ballast.io.manifest import safe_name
+from ballast.models.loading import check_model_folder, resolve_model
 
 
 def _folder(tmp_path: Path, files: dict[str, bytes]) -> Path:

@@ -1,4 +1,4 @@
-"""ballast.splits: document-level splits, query assignment, TREC qrels, leakage audit.
+"""ballast.core.splits: document-level splits, query assignment, TREC qrels, leakage audit.
 
 Splitting by document, not by query, is common practice for retrieval test collections (no
 passage of a held-out document is trained on). The qrels layout is TREC's, the trade's open
@@ -15,13 +15,9 @@ from hypothesis import strategies as st
 
 from ballast import InputError
 from ballast.config import SplitConfig
-from ballast.splits import (
-    assign_documents,
-    assign_queries,
-    leakage_audit,
-    qrels_for,
-)
-from ballast.trec import format_qrels
+from ballast.core.records import qrels_for
+from ballast.core.splits import assign_documents, assign_queries, leakage_audit
+from ballast.io.trec import format_qrels
 
 DOCS = [f"doc-{i:03d}" for i in range(40)]
 

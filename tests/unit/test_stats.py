@@ -1,4 +1,4 @@
-"""Hand-computed and property cases for ballast.stats (common practice where no source is named)."""
+"""Hand-computed and property cases for ballast.core.stats (common practice where no source is named)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,13 @@ import numpy as np
 import pytest
 from pytest import approx
 
-from ballast.stats import PairedComparison, compare, holm, paired_bootstrap_ci, randomization_test
+from ballast.core.stats import (
+    PairedComparison,
+    compare,
+    holm,
+    paired_bootstrap_ci,
+    randomization_test,
+)
 
 
 def _data(seed: int = 0, n: int = 40) -> tuple[np.ndarray, np.ndarray]:
@@ -94,7 +100,7 @@ def test_bootstrap_constant_diff() -> None:
 
 
 def test_bootstrap_chunking_is_invisible(monkeypatch: pytest.MonkeyPatch) -> None:
-    import ballast.stats as stats
+    import ballast.core.stats as stats
 
     a, b = _data(1)
     diff = b - a

@@ -15,10 +15,11 @@ import pytest
 
 from ballast import InputError
 from ballast.config import SynthConfig
-from ballast.corpus import split_sentences
-from ballast.errors import ConfigError
-from ballast.synth import ict_queries, import_questions, keyword_queries, synthesize
-from ballast.synth.extractive import budget
+from ballast.core.errors import ConfigError
+from ballast.core.text import split_sentences
+from ballast.stages.synth.dispatch import synthesize
+from ballast.stages.synth.extractive import budget, ict_queries, keyword_queries
+from ballast.stages.synth.human import import_questions
 
 WORDS = (
     "apple press barrel yeast cellar bottle label orchard pallet valve filter sugar acid "

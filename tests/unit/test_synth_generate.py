@@ -16,9 +16,9 @@ import pytest
 
 from ballast import ConfigError
 from ballast.config import SynthConfig
-from ballast.synth.cache import GenerationCache, entry_key
-from ballast.synth.generate import clean_query, item_seed, plan
-from ballast.synth.prompts import default_prompts_dir, load_template, load_templates
+from ballast.stages.synth.cache import GenerationCache, entry_key
+from ballast.stages.synth.generate import clean_query, item_seed, plan
+from ballast.stages.synth.prompts import default_prompts_dir, load_template, load_templates
 
 PASSAGES = [
     {"id": f"p{i}", "doc_id": "d", "text": f"Passage number {i} about the press hall."}
@@ -206,7 +206,7 @@ def test_clean_query(raw: str, clean: str) -> None:
 def test_gumbel_sampler_draws_from_the_softmax() -> None:
     import torch
 
-    from ballast.synth.llm import _gumbel_sampler
+    from ballast.stages.synth.llm import _gumbel_sampler
 
     logits = torch.log(torch.tensor([[1.0, 2.0, 3.0]]))  # softmax: 1/6, 2/6, 3/6
     seeds = list(range(3000))

@@ -15,8 +15,8 @@ import pytest
 
 from ballast import InputError
 from ballast.config import SynthConfig
-from ballast.synth.generate import model_queries
-from ballast.synth.llm import LocalModel
+from ballast.stages.synth.generate import model_queries
+from ballast.stages.synth.llm import LocalModel
 
 WORDS = (
     "how where when what is the a press hall tank batteries charged rinsed label printer".split()

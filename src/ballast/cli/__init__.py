@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from .app import app
+from ballast.cli.app import app
 
 
 def main() -> None:

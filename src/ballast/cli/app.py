@@ -9,8 +9,8 @@ from typing import Annotated, Any
 
 import typer
 
-from ..errors import BallastError
-from .output import StderrProgress, emit_json, gate_text, metrics_table, stage_line
+from ballast.cli.output import StderrProgress, emit_json, gate_text, metrics_table, stage_line
+from ballast.core.errors import BallastError
 
 app = typer.Typer(
     add_completion=False,
@@ -57,12 +57,12 @@ def _fail(exc: BallastError) -> None:
 
 
 def _load(target: Path, sets: list[str] | None) -> Any:
-    from ..config import load_config, load_run_config
+    from ballast.config import load_config, load_run_config
 
     if target.is_dir():
         return load_run_config(target, sets or [])
     if not target.exists():
-        from ..errors import ConfigError
+        from ballast.core.errors import ConfigError
 
         raise ConfigError("no such config file or run folder", source=str(target))
     return load_config(target, sets or [])
@@ -76,8 +76,8 @@ def _stage(
     quiet: bool,
     force: bool = False,
 ) -> None:
-    from ..pipeline import run_stage
-    from ..stages import Run
+    from ballast.pipeline import run_stage
+    from ballast.stages import Run
 
     try:
         cfg = _load(target, sets)
@@ -180,12 +180,12 @@ def evaluate_command(
             raise typer.Exit(2)
         _stage("evaluate", target, set_, as_json, quiet)
         return
-    from ..config import load_config
-    from ..stages import evaluate_files
+    from ballast.config import load_config
+    from ballast.stages.evaluate import evaluate_files
 
     try:
         if not all(files) or not out or not model:
-            from ..errors import ConfigError
+            from ballast.core.errors import ConfigError
 
             raise ConfigError(
                 "comparing models on a set of files needs --queries, --qrels, "
@@ -211,8 +211,8 @@ def evaluate_command(
 
 
 def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
-    from ..pipeline import run_all
-    from ..stages import Run
+    from ballast.pipeline import run_all
+    from ballast.stages import Run
 
     progress = StderrProgress(quiet or as_json)
     run = Run(cfg, progress, force_export=force)
@@ -268,14 +268,21 @@ def run_command(
 
 
 def demo_config() -> Path:
-    here = Path(__file__).resolve().parents[3] / "configs" / "demo.toml"
-    return here if here.is_file() else Path("configs/demo.toml")
+    """configs/demo.toml of the source checkout: the current folder's, else the one beside an
+    editable install's src/. The demo documents ship with the source, not with the wheel."""
+    for base in (Path.cwd(), Path(__file__).resolve().parents[3]):
+        if (base / "configs" / "demo.toml").is_file():
+            return base / "configs" / "demo.toml"
+    raise BallastError(
+        "the demo needs ballast's source checkout (configs/demo.toml and data_demo/); run "
+        "`ballast demo` from its folder"
+    )
 
 
 @app.command("demo")
 def demo_command(set_: Sets = None, as_json: Json = False, quiet: Quiet = False) -> None:
     """The whole pipeline on the bundled demo domain (configs/demo.toml into runs/demo/)."""
-    from ..config import load_config
+    from ballast.config import load_config
 
     try:
         cfg = load_config(demo_config(), set_ or [])
@@ -291,19 +298,26 @@ def demo_command(set_: Sets = None, as_json: Json = False, quiet: Quiet = False)
 
 @app.command("init")
 def init_command(folder: Annotated[Path, typer.Argument(help="Folder for a new project.")]) -> None:
-    """Write a commented config template and an empty documents folder."""
-    from ..files import write_text_atomic
-    from .template import TEMPLATE
+    """Write a commented config template, an empty documents folder and a copy of the default
+    query-writing prompts to edit (prompts/)."""
+    from ballast.cli.template import TEMPLATE
+    from ballast.io.files import write_text_atomic
+    from ballast.stages.synth.prompts import default_prompts_dir
 
     cfg = folder / "ballast.toml"
     if cfg.exists():
         sys.stderr.write(f"error: {cfg} already exists; not overwritten\n")
         raise typer.Exit(2)
     (folder / "docs").mkdir(parents=True, exist_ok=True)
+    prompts = folder / "prompts"
+    if not prompts.exists():
+        prompts.mkdir()
+        for f in sorted(default_prompts_dir().glob("*.toml")):
+            write_text_atomic(prompts / f.name, f.read_text("utf-8"))
     write_text_atomic(cfg, TEMPLATE.replace("{name}", _slug(folder.resolve().name)))
     typer.echo(
-        f"wrote {cfg} and {folder / 'docs'}/; put your documents there, then run "
-        f"`ballast run {cfg}`"
+        f"wrote {cfg}, {folder / 'docs'}/ and {prompts}/ (the default prompts, to edit); put "
+        f"your documents in docs/, then run `ballast run {cfg}`"
     )
 
 
@@ -341,7 +355,7 @@ def embed_command(
 ) -> None:
     """Write the bundle's embeddings of a passages (or queries) file, in batches, with
     progress."""
-    from ..embed import embed_file
+    from ballast.bundle.embed import embed_file
 
     try:
         result = embed_file(
@@ -369,7 +383,7 @@ def embed_command(
 def verify_command(bundle: Bundle, as_json: Json = False, quiet: Quiet = False) -> None:
     """Check a bundle against its manifest: file and weight hashes, and a sample of
     embeddings re-computed; exit 2 on any mismatch."""
-    from ..verify import verify_bundle
+    from ballast.bundle.verify import verify_bundle
 
     try:
         result = verify_bundle(bundle, progress=StderrProgress(quiet or as_json))

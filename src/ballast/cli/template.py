@@ -34,7 +34,8 @@ questions = ""             # a JSONL of real questions: {"id","text","doc_id","q
                            # set it, and add "human" to evaluate.splits and gate.splits
 # Model-written queries ("llm" and "http"); the llm_* generation settings serve both.
 prompts = ""               # folder of few-shot prompts, one <style>.toml a style
-                           # ("" = configs/prompts of ballast); copy it and edit
+                           # ("" = the defaults shipped with ballast; `ballast init`
+                           # copied them into prompts/: set "prompts" to use your edits)
 styles = ["question", "keywords", "troubleshooting"]  # drawn per query; repeat one to weigh it
 llm_per_passage = 1        # queries a passage
 llm_model = "packaged:gemma-3-270m"  # or a local model folder, or a .gguf file; the packaged

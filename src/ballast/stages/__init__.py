@@ -1,32 +1,37 @@
-"""Each stage as file-in, file-out glue around the pure core modules, one module a stage.
+"""The stages, in pipeline order: each is one package holding its logic, its file glue and its
+declaration (``STAGE``: the config keys and files it reads, the files it writes).
 
-A stage reads what earlier stages wrote into the run folder, calls the core, and writes its
-outputs atomically. ``pipeline.py`` decides whether a stage needs to run.
+A stage reads what earlier stages wrote into the run folder and writes its outputs atomically;
+``pipeline.py`` decides whether a stage needs to run. Stages never import each other.
 """
 
 from __future__ import annotations
 
-from .evaluate import evaluate, evaluate_files
-from .export import export
-from .gate import gate
-from .ingest import ingest
-from .mine import mine
-from .report import report
-from .run import Run
-from .split import split
-from .synth import synth
-from .train import train
+from ballast.stages import evaluate as _evaluate
+from ballast.stages import export as _export
+from ballast.stages import gate as _gate
+from ballast.stages import ingest as _ingest
+from ballast.stages import mine as _mine
+from ballast.stages import report as _report
+from ballast.stages import split as _split
+from ballast.stages import synth as _synth
+from ballast.stages import train as _train
+from ballast.stages.base import Run, Stage
 
-STAGE_FUNCS = {
-    "ingest": ingest,
-    "synth": synth,
-    "split": split,
-    "mine": mine,
-    "train": train,
-    "evaluate": evaluate,
-    "gate": gate,
-    "report": report,
-    "export": export,
+STAGES: dict[str, Stage] = {
+    s.name: s
+    for s in (
+        _ingest.STAGE,
+        _synth.STAGE,
+        _split.STAGE,
+        _mine.STAGE,
+        _train.STAGE,
+        _evaluate.STAGE,
+        _gate.STAGE,
+        _report.STAGE,
+        _export.STAGE,
+    )
 }
+ORDER = tuple(STAGES)
 
-__all__ = ["STAGE_FUNCS", "Run", "evaluate_files"]
+__all__ = ["ORDER", "STAGES", "Run", "Stage"]

@@ -1,0 +1,412 @@
+"""The config sections: one frozen dataclass per stage, each key checked when it is built.
+
+Every key is checked before any stage runs; an error names the key, the bad value and what is
+allowed. Paths in a config file are relative to the folder of that file.
+"""
+
+from __future__ import annotations
+
+import typing
+from dataclasses import dataclass
+from typing import Any
+
+from ballast.core.errors import ConfigError
+from ballast.core.metrics import parse_metric
+
+PACKAGED_BASE = "packaged:all-MiniLM-L6-v2"
+EVAL_SPLITS = ("train", "dev", "test", "human", "human_heldout", "guard")
+GATE_SPLITS = ("test", "human", "human_heldout", "guard")
+
+
+def _fail(key: str, value: Any, expected: str) -> typing.NoReturn:
+    raise ConfigError(f"got {value!r}; expected {expected}", key=key)
+
+
+def _range(
+    key: str,
+    value: float,
+    lo: float | None = None,
+    hi: float | None = None,
+    *,
+    lo_open: bool = False,
+    hi_open: bool = False,
+) -> None:
+    bad = (lo is not None and (value <= lo if lo_open else value < lo)) or (
+        hi is not None and (value >= hi if hi_open else value > hi)
+    )
+    if bad:
+        left = "(" if lo_open else "["
+        right = ")" if hi_open else "]"
+        _fail(
+            key,
+            value,
+            f"a number in {left}{lo if lo is not None else '-inf'}, "
+            f"{hi if hi is not None else 'inf'}{right}",
+        )
+
+
+@dataclass(frozen=True)
+class IngestConfig:
+    docs: str = "docs"
+    extensions: tuple[str, ...] = (".txt", ".md", ".html", ".htm", ".jsonl", ".csv", ".parquet")
+    max_tokens: int = 120
+    overlap_tokens: int = 24
+    min_tokens: int = 8
+    id_field: str = "id"
+    text_field: str = "text"
+    title_field: str = "title"
+
+    def __post_init__(self) -> None:
+        _range("ingest.max_tokens", self.max_tokens, 16, 512)
+        _range("ingest.overlap_tokens", self.overlap_tokens, 0, self.max_tokens // 2)
+        _range("ingest.min_tokens", self.min_tokens, 1, self.max_tokens)
+        for ext in self.extensions:
+            if not ext.startswith("."):
+                _fail("ingest.extensions", ext, "extensions that start with a dot, like '.md'")
+
+
+@dataclass(frozen=True)
+class SynthConfig:
+    generators: tuple[str, ...] = ("ict", "keywords")
+    ict_per_passage: int = 1
+    ict_remove_prob: float = 0.9
+    ict_min_words: int = 6
+    keywords_per_passage: int = 1
+    keywords_min_terms: int = 2
+    keywords_max_terms: int = 4
+    questions: str = ""
+    # a budget: the generators write for at most this many passages, a seeded sample (0 = all)
+    max_passages: int = 0
+    # model-written queries: "llm" (a local model) and "http" (a chat-completions endpoint)
+    prompts: str = ""
+    styles: tuple[str, ...] = ("question", "keywords", "troubleshooting")
+    llm_per_passage: int = 1
+    llm_model: str = "packaged:gemma-3-270m"
+    llm_batch_size: int = 4
+    llm_max_new_tokens: int = 32
+    llm_temperature: float = 0.7
+    http_base_url: str = ""
+    http_model: str = ""
+    http_api_key_env: str = ""
+    http_concurrency: int = 4
+    http_timeout_s: float = 60.0
+    http_retries: int = 3
+    http_backoff_s: float = 1.0
+    # filters of model-written queries; round_trip_k judges every generated query (0 = off)
+    min_words: int = 2
+    max_words: int = 32
+    copy_overlap: float = 0.75
+    round_trip_k: int = 0
+
+    def __post_init__(self) -> None:
+        for g in self.generators:
+            if g not in ("ict", "keywords", "headings", "llm", "http"):
+                _fail(
+                    "synth.generators",
+                    g,
+                    "a list drawn from 'ict', 'keywords', 'headings', 'llm', 'http'",
+                )
+        _check_model_synth(self)
+        _range("synth.ict_per_passage", self.ict_per_passage, 0, 20)
+        _range("synth.ict_remove_prob", self.ict_remove_prob, 0.0, 1.0)
+        _range("synth.ict_min_words", self.ict_min_words, 1, 100)
+        _range("synth.keywords_per_passage", self.keywords_per_passage, 0, 20)
+        _range("synth.keywords_min_terms", self.keywords_min_terms, 1, 20)
+        _range("synth.keywords_max_terms", self.keywords_max_terms, self.keywords_min_terms, 20)
+        _range("synth.max_passages", self.max_passages, 0, 10**9)
+
+
+def _check_model_synth(c: SynthConfig) -> None:
+    """The settings of the model-written generators and their filters."""
+    import re
+    import urllib.parse
+
+    if not c.styles:
+        _fail("synth.styles", [], "at least one style, like 'question'")
+    for st in c.styles:
+        if not re.fullmatch(r"[A-Za-z0-9_-]+", st):
+            _fail("synth.styles", st, "style names of letters, digits, '_' or '-' (file names)")
+    _range("synth.llm_per_passage", c.llm_per_passage, 0, 20)
+    _range("synth.llm_batch_size", c.llm_batch_size, 1, 256)
+    _range("synth.llm_max_new_tokens", c.llm_max_new_tokens, 4, 512)
+    _range("synth.llm_temperature", c.llm_temperature, 0.0, 2.0)
+    _range("synth.http_concurrency", c.http_concurrency, 1, 64)
+    _range("synth.http_timeout_s", c.http_timeout_s, 0.0, 3600.0, lo_open=True)
+    _range("synth.http_retries", c.http_retries, 0, 10)
+    _range("synth.http_backoff_s", c.http_backoff_s, 0.0, 60.0)
+    _range("synth.min_words", c.min_words, 1, 100)
+    _range("synth.max_words", c.max_words, c.min_words, 1000)
+    _range("synth.copy_overlap", c.copy_overlap, 0.0, 1.0, lo_open=True)
+    _range("synth.round_trip_k", c.round_trip_k, 0, 10_000)
+    # Neither message below repeats the value: it may be a secret put in the wrong place.
+    env_name = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,63}")
+    if c.http_api_key_env and not env_name.fullmatch(c.http_api_key_env):
+        raise ConfigError(
+            "expected the NAME of an environment variable that holds the API key (letters, "
+            "digits, '_'), never the key itself",
+            key="synth.http_api_key_env",
+        )
+    if c.http_base_url:
+        parts = urllib.parse.urlsplit(c.http_base_url)
+        if parts.username or parts.password or parts.query:
+            raise ConfigError(
+                "expected a URL without user name, password or query; put the API key in an "
+                "environment variable and name it in synth.http_api_key_env",
+                key="synth.http_base_url",
+            )
+        if parts.scheme not in ("http", "https") or not parts.hostname:
+            _fail("synth.http_base_url", c.http_base_url, "a URL like 'http://127.0.0.1:8080/v1'")
+    if "http" in c.generators:
+        if not c.http_base_url:
+            _fail("synth.http_base_url", "", "the endpoint's base URL when 'http' is a generator")
+        if not c.http_model:
+            _fail("synth.http_model", "", "the model name to ask for when 'http' is a generator")
+
+
+@dataclass(frozen=True)
+class SplitConfig:
+    test_fraction: float = 0.2
+    dev_fraction: float = 0.1
+    leakage_threshold: float = 0.9
+
+    def __post_init__(self) -> None:
+        _range("split.test_fraction", self.test_fraction, 0.0, 0.9, lo_open=True)
+        _range("split.dev_fraction", self.dev_fraction, 0.0, 0.5)
+        if self.test_fraction + self.dev_fraction >= 1.0:
+            _fail(
+                "split.dev_fraction",
+                self.dev_fraction,
+                "test_fraction + dev_fraction below 1, so some documents remain for training",
+            )
+        _range("split.leakage_threshold", self.leakage_threshold, 0.0, 1.0, lo_open=True)
+
+
+@dataclass(frozen=True)
+class MineConfig:
+    """Hard-negative mining; docs/mining.md explains every rule. A ceiling of 0 (1.0 for
+    ``max_score``) is off."""
+
+    negatives: int = 1
+    window_start: int = 0
+    window_end: int = 30
+    max_relative: float = 0.95
+    max_margin: float = 0.0
+    max_score: float = 1.0
+    ceiling_reference: str = "passage"
+    near_duplicate: float = 0.5
+    sample: str = "random"
+    exclude_same_doc: bool = False
+    rescorer: str = ""
+    rescorer_model: str = ""
+    rescorer_threshold: float = 0.95
+    search: str = "auto"
+    faiss_above: int = 200_000
+
+    def __post_init__(self) -> None:
+        _range("mine.negatives", self.negatives, 0, 64)
+        _range("mine.window_start", self.window_start, 0, 10_000)
+        _range("mine.window_end", self.window_end, self.window_start + 1, 10_000)
+        if not 0.0 <= self.max_relative <= 1.0:
+            _fail("mine.max_relative", self.max_relative, "0 (off) or a number in (0, 1]")
+        _range("mine.max_margin", self.max_margin, 0.0, 2.0)
+        _range("mine.max_score", self.max_score, -1.0, 1.0, lo_open=True)
+        if self.ceiling_reference not in ("passage", "training"):
+            _fail("mine.ceiling_reference", self.ceiling_reference, "'passage' or 'training'")
+        _range("mine.near_duplicate", self.near_duplicate, 0.0, 1.0)
+        if self.sample not in ("random", "top"):
+            _fail("mine.sample", self.sample, "'random' or 'top'")
+        if self.rescorer not in ("", "cross-encoder", "query-likelihood"):
+            _fail("mine.rescorer", self.rescorer, "'', 'cross-encoder' or 'query-likelihood'")
+        if self.rescorer and not self.rescorer_model:
+            _fail("mine.rescorer_model", "", "a local model folder when mine.rescorer is set")
+        if self.rescorer_model and not self.rescorer:
+            _fail(
+                "mine.rescorer",
+                "",
+                "'cross-encoder' or 'query-likelihood' when mine.rescorer_model is set",
+            )
+        _range("mine.rescorer_threshold", self.rescorer_threshold, 0.0, 10.0, lo_open=True)
+        if self.search not in ("auto", "exact", "faiss"):
+            _fail("mine.search", self.search, "'auto', 'exact' or 'faiss'")
+        _range("mine.faiss_above", self.faiss_above, 1, 10**9)
+
+
+@dataclass(frozen=True)
+class TrainConfig:
+    epochs: int = 1
+    batch_size: int = 32
+    learning_rate: float = 2e-5
+    warmup_ratio: float = 0.1
+    max_seq_length: int = 128
+    threads: int = 0
+    checkpoint_steps: int = 0
+    mode: str = "full"  # "full" fine-tune, "adapter" (frozen encoder), "lora" (peft)
+    adapter_side: str = "query"  # "query" keeps a document index valid; or "both"
+    adapter_rank: int = 0  # 0 = a full d x d matrix; else W = I + U V^T of this rank
+    adapter_epochs: int = 30
+    adapter_learning_rate: float = 1e-4
+    lora_rank: int = 8
+    lora_alpha: float = 16.0
+    loss: str = "mnrl"  # or "cached_mnrl" (GradCache, Gao et al. 2021)
+    mini_batch_size: int = 8  # cached_mnrl's chunk size
+    # Matryoshka representation learning (Kusupati et al. 2022): the loss is also taken on the
+    # first d dimensions of each embedding, for each d; evaluate scores the truncated ones too.
+    matryoshka_dims: tuple[int, ...] = ()
+    # Every eval_steps steps, score the dev split by gate.primary_metric and keep the best
+    # checkpoint; stop after early_stopping_patience scores without a gain (0 = never stop).
+    # mode = "adapter" scores dev after every epoch without eval_steps (the patience in epochs).
+    eval_steps: int = 0
+    early_stopping_patience: int = 0
+    # bfloat16 autocast: true, false, or "auto" (on where the hardware has bfloat16 arithmetic:
+    # a CPU with AVX-512 BF16 or AMX, a GPU that supports it). docs/training.md: no loss of
+    # quality measured; emulated on other CPUs it is ~19x slower, so "auto" leaves it off there.
+    bf16: bool | str = "auto"
+
+    def __post_init__(self) -> None:
+        if self.mode not in ("full", "adapter", "lora"):
+            _fail("train.mode", self.mode, "'full', 'adapter' or 'lora'")
+        if self.adapter_side not in ("query", "both"):
+            _fail("train.adapter_side", self.adapter_side, "'query' or 'both'")
+        _range("train.adapter_rank", self.adapter_rank, 0, 4096)
+        _range("train.adapter_epochs", self.adapter_epochs, 1, 10_000)
+        _range("train.adapter_learning_rate", self.adapter_learning_rate, 0.0, 1.0, lo_open=True)
+        _range("train.lora_rank", self.lora_rank, 1, 1024)
+        _range("train.lora_alpha", self.lora_alpha, 0.0, 4096.0, lo_open=True)
+        if self.loss not in ("mnrl", "cached_mnrl"):
+            _fail("train.loss", self.loss, "'mnrl' or 'cached_mnrl'")
+        _range("train.mini_batch_size", self.mini_batch_size, 1, 4096)
+        for d in self.matryoshka_dims:
+            _range("train.matryoshka_dims", d, 1, 65_536)
+        if list(self.matryoshka_dims) != sorted(set(self.matryoshka_dims), reverse=True):
+            _fail(
+                "train.matryoshka_dims",
+                list(self.matryoshka_dims),
+                "distinct dimensions, largest first, like [384, 256, 128, 64]",
+            )
+        if self.matryoshka_dims and self.mode == "adapter":
+            _fail("train.mode", self.mode, "'full' or 'lora' when train.matryoshka_dims is set")
+        _range("train.eval_steps", self.eval_steps, 0, 10**9)
+        _range("train.early_stopping_patience", self.early_stopping_patience, 0, 10_000)
+        if self.early_stopping_patience and not self.eval_steps and self.mode != "adapter":
+            _fail(
+                "train.eval_steps", 0, "a number of steps > 0 when early_stopping_patience is set"
+            )
+        if self.eval_steps and self.mode == "adapter":
+            _fail("train.mode", self.mode, "'full' or 'lora' when train.eval_steps is set")
+        if self.eval_steps and self.checkpoint_steps % self.eval_steps:
+            _fail(
+                "train.checkpoint_steps",
+                self.checkpoint_steps,
+                f"a multiple of train.eval_steps ({self.eval_steps}): the best checkpoint is "
+                "chosen among saved ones",
+            )
+        _range("train.epochs", self.epochs, 1, 100)
+        _range("train.batch_size", self.batch_size, 2, 4096)
+        _range("train.learning_rate", self.learning_rate, 0.0, 1.0, lo_open=True)
+        _range("train.warmup_ratio", self.warmup_ratio, 0.0, 0.5)
+        _range("train.max_seq_length", self.max_seq_length, 16, 512)
+        _range("train.threads", self.threads, 0, 512)
+        _range("train.checkpoint_steps", self.checkpoint_steps, 0, 10**9)
+
+
+@dataclass(frozen=True)
+class EvaluateConfig:
+    splits: tuple[str, ...] = ("dev", "test")
+    metrics: tuple[str, ...] = (
+        "ndcg@10",
+        "mrr@10",
+        "recall@10",
+        "precision@10",
+        "map@10",
+        "hit_rate@10",
+    )
+    bootstrap_resamples: int = 10_000
+    confidence: float = 0.95
+    batch_size: int = 64
+    # Encode passages with one process per device (sentence-transformers' multi-process
+    # encoding), e.g. ["cuda:0", "cuda:1"]; fewer than two = in this process. Used by mine
+    # and evaluate.
+    encode_devices: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        for s in self.splits:
+            if s not in EVAL_SPLITS:
+                _fail("evaluate.splits", s, f"a list drawn from {', '.join(EVAL_SPLITS)}")
+        for m in self.metrics:
+            try:
+                parse_metric(m)
+            except ValueError as exc:
+                raise ConfigError(str(exc), key="evaluate.metrics") from None
+        _range("evaluate.bootstrap_resamples", self.bootstrap_resamples, 100, 10**7)
+        _range("evaluate.confidence", self.confidence, 0.0, 1.0, lo_open=True, hi_open=True)
+        _range("evaluate.batch_size", self.batch_size, 1, 4096)
+        import re
+
+        for d in self.encode_devices:
+            if not re.fullmatch(r"(cpu|cuda|npu|mps|xpu)(:\d+)?", d):
+                _fail("evaluate.encode_devices", d, "devices like 'cpu', 'cuda:0', 'cuda:1'")
+
+
+@dataclass(frozen=True)
+class GuardConfig:
+    """A general-domain set the tuned model must not get worse on (forgetting is caught)."""
+
+    queries: str = ""
+    qrels: str = ""
+    passages: str = ""
+
+    def __post_init__(self) -> None:
+        given = [k for k in ("queries", "qrels", "passages") if getattr(self, k)]
+        if given and len(given) != 3:
+            missing = [k for k in ("queries", "qrels", "passages") if k not in given]
+            _fail(
+                f"guard.{missing[0]}", "", "a file: a guard set needs queries, qrels and passages"
+            )
+
+    @property
+    def enabled(self) -> bool:
+        return bool(self.queries)
+
+
+@dataclass(frozen=True)
+class GateConfig:
+    splits: tuple[str, ...] = ("test",)
+    primary_metric: str = "ndcg@10"
+    min_gain: float = 0.0
+    alpha: float = 0.05
+    guard_tolerance: float = 0.01
+    min_queries: int = 30
+
+    def __post_init__(self) -> None:
+        if not self.splits:
+            _fail("gate.splits", list(self.splits), "at least one split")
+        for s in self.splits:
+            if s not in GATE_SPLITS:
+                allowed = ", ".join(GATE_SPLITS)
+                _fail("gate.splits", s, f"a list drawn from {allowed} (dev is never gated)")
+        if not any(s != "guard" for s in self.splits):
+            _fail(
+                "gate.splits", list(self.splits), "at least one of 'test', 'human' besides 'guard'"
+            )
+        try:
+            parse_metric(self.primary_metric)
+        except ValueError as exc:
+            raise ConfigError(str(exc), key="gate.primary_metric") from None
+        _range("gate.min_gain", self.min_gain, 0.0, 1.0)
+        _range("gate.alpha", self.alpha, 0.0, 0.5, lo_open=True)
+        _range("gate.guard_tolerance", self.guard_tolerance, 0.0, 1.0)
+        _range("gate.min_queries", self.min_queries, 2, 10**7)
+
+
+@dataclass(frozen=True)
+class ExportConfig:
+    dir: str = ""
+    version: str = ""
+    onnx: bool = False  # also write model.onnx (pooling and normalisation in the graph)
+    quantize_int8: bool = False  # also write model_int8.onnx (implies onnx), cost measured
+
+    def __post_init__(self) -> None:
+        if self.version and not all(c.isalnum() or c in "._-" for c in self.version):
+            _fail("export.version", self.version, "letters, digits, '.', '_' or '-' only")
+
+

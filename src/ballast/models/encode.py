@@ -1,0 +1,123 @@
+"""Encoding texts, with a content-addressed cache keyed by model fingerprint and texts."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ballast.core.progress import SILENT, Progress
+from ballast.core.text import sha256_bytes
+
+
+@contextlib.contextmanager
+def device_pool(model: Any, devices: Sequence[str]) -> Iterator[Any]:
+    """sentence-transformers' own multi-process encoding: one process per entry of
+    ``devices`` (e.g. ``["cuda:0", "cuda:1"]``, or ``["cpu", "cpu"]``), each with a copy of the
+    model; ``None`` (encode in this process) for fewer than two devices. The processes are
+    stopped on leaving, also on error."""
+    if len(devices) < 2:
+        yield None
+        return
+    pool = model.start_multi_process_pool(list(devices))
+    try:
+        yield pool
+    finally:
+        model.stop_multi_process_pool(pool)
+
+
+def encode(
+    model: Any,
+    texts: list[str],
+    *,
+    batch_size: int = 64,
+    label: str = "encoding",
+    progress: Progress = SILENT,
+    pool: Any = None,
+) -> np.ndarray:
+    """Unit-normalised float32 embeddings, one row per text, in order; with a ``pool`` from
+    ``device_pool``, each batch is shared out over its processes."""
+    import torch
+
+    out = []
+    # With a pool, a step hands each process one batch (sentence-transformers' chunk_size).
+    spread = {"pool": pool, "chunk_size": batch_size} if pool is not None else {}
+    step = batch_size * (len(pool["processes"]) if pool is not None else 1)
+    with torch.inference_mode():
+        for start in range(0, len(texts), step):
+            batch = texts[start : start + step]
+            emb = model.encode(
+                batch,
+                batch_size=batch_size,
+                convert_to_numpy=True,
+                normalize_embeddings=True,
+                show_progress_bar=False,
+                **spread,
+            )
+            out.append(np.asarray(emb, dtype=np.float32))
+            progress.step(label, min(start + step, len(texts)), len(texts))
+    if not out:
+        dim = model.get_embedding_dimension()
+        return np.zeros((0, dim), dtype=np.float32)
+    return np.concatenate(out)
+
+
+class EmbeddingCache:
+    """Embeddings stored as ``<dir>/<model fp>/<hash of the texts>.npy``; writes are atomic."""
+
+    def __init__(self, root: str | Path) -> None:
+        self.root = Path(root)
+
+    def _path(self, model_fp: str, texts: list[str], max_seq_length: int) -> Path:
+        h = sha256_bytes("\0".join([str(max_seq_length), *texts]).encode("utf-8"))
+        return self.root / model_fp[:24] / f"{h[:32]}.npy"
+
+    def get(self, model_fp: str, texts: list[str], max_seq_length: int) -> np.ndarray | None:
+        path = self._path(model_fp, texts, max_seq_length)
+        if not path.is_file():
+            return None
+        try:
+            arr = np.load(path, allow_pickle=False)
+        except (ValueError, OSError):
+            return None  # a damaged entry is recomputed
+        return arr if arr.shape[0] == len(texts) else None
+
+    def put(self, model_fp: str, texts: list[str], max_seq_length: int, emb: np.ndarray) -> None:
+        path = self._path(model_fp, texts, max_seq_length)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, suffix=".tmp")
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                np.save(fh, emb, allow_pickle=False)
+            os.replace(tmp, path)
+        except BaseException:
+            Path(tmp).unlink(missing_ok=True)
+            raise
+
+
+def encode_cached(
+    model: Any,
+    model_fp: str,
+    texts: list[str],
+    cache: EmbeddingCache | None,
+    *,
+    batch_size: int = 64,
+    label: str = "encoding",
+    progress: Progress = SILENT,
+    pool: Any = None,
+) -> np.ndarray:
+    msl = int(getattr(model, "max_seq_length", 0) or 0)
+    if cache is not None:
+        hit = cache.get(model_fp, texts, msl)
+        if hit is not None:
+            progress.info(f"{label}: {len(texts)} embeddings from cache")
+            return hit
+    emb = encode(model, texts, batch_size=batch_size, label=label, progress=progress, pool=pool)
+    if cache is not None:
+        cache.put(model_fp, texts, msl, emb)
+    return emb

@@ -1,0 +1,108 @@
+"""What every stage shares: the run folder it works in (inputs, the base model, seeded RNGs)
+and the declaration each stage makes of what it reads and writes."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ballast.config import Config
+from ballast.config.record import ConfigView, unwrap
+from ballast.core.errors import StageError
+from ballast.core.progress import SILENT, Progress
+from ballast.io.files import read_jsonl
+
+# One salt a stage, so each stage draws from its own seeded generator.
+SALT = {"synth": 1, "split": 2, "mine": 3, "train": 4, "evaluate": 5}
+
+
+@dataclass
+class Run:
+    cfg: Config
+    progress: Progress = SILENT
+    force_export: bool = False
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def dir(self) -> Path:
+        return unwrap(self.cfg).run_path
+
+    def recording(self, reads: set[str]) -> Run:
+        """This run with a config view that adds every key the stage reads to ``reads``."""
+        return dataclasses.replace(self, cfg=ConfigView(unwrap(self.cfg), reads))
+
+    def path(self, *parts: str) -> Path:
+        return self.dir.joinpath(*parts)
+
+    def rng(self, stage: str) -> np.random.Generator:
+        return np.random.default_rng([self.cfg.seed, SALT[stage]])
+
+    @cached_property
+    def base_path(self) -> Path:
+        from ballast.models.loading import resolve_model
+
+        return resolve_model(unwrap(self.cfg).base_model)
+
+    @cached_property
+    def base_fp(self) -> str:
+        from ballast.models.loading import model_fingerprint
+
+        return model_fingerprint(self.base_path)
+
+    def need(self, name: str, made_by: str) -> Path:
+        p = self.path(name)
+        if not p.exists():
+            raise StageError(f"{p} is missing; run `ballast {made_by}` first (or `ballast run`)")
+        return p
+
+    def passages(self) -> list[dict]:
+        return [row for _, row in read_jsonl(self.need("passages.jsonl", "ingest"))]
+
+    def queries(self) -> list[dict]:
+        return [row for _, row in read_jsonl(self.need("queries.jsonl", "synth"))]
+
+    def splits(self) -> dict[str, Any]:
+        return json.loads(self.need("splits.json", "split").read_text("utf-8"))
+
+    def cache(self) -> Any:
+        from ballast.models.encode import EmbeddingCache
+
+        return EmbeddingCache(self.path("cache"))
+
+
+@dataclass(frozen=True)
+class Stage:
+    """One stage's declaration, kept beside its code: the pipeline derives the stage's
+    fingerprint from it (no list elsewhere), and checks after each run that every config key
+    the stage read is covered by ``keys``.
+
+    ``keys``: config keys or whole sections read (``"train"``, ``"gate.primary_metric"``);
+    ``inputs``/``outputs``: files or folders in the run folder; ``external``: fingerprints of
+    what the stage reads from outside the run folder (documents, questions, guard files,
+    prompts, models); ``base_model``: whether the base model's weights are an input."""
+
+    name: str
+    run: Callable[[Run], dict[str, Any]]
+    keys: tuple[str, ...]
+    inputs: tuple[str, ...] = ()
+    outputs: tuple[str, ...] = ()
+    external: Callable[[Run], dict[str, str]] | None = None
+    base_model: bool = False
+
+
+def file_fingerprint(path: str | Path | None) -> str:
+    """A file's (or folder's) fingerprint for ``Stage.external``; "missing" when absent (the
+    stage itself then says what is wrong)."""
+    from ballast.io.files import fingerprint_tree
+
+    if not path:
+        return "unset"
+    p = Path(path)
+    return fingerprint_tree(p) if p.exists() else "missing"

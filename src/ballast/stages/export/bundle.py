@@ -1,0 +1,43 @@
+"""The bundle the index builder loads: the tuned model folder plus ``manifest.json``."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+from typing import Any
+
+
+def model_facts(model_dir: Path) -> dict[str, Any]:
+    """Dimension, similarity, pooling, normalisation and length, as the loaded model says (for a
+    routed model, its document route: ``routes`` then names the routes)."""
+    from ballast.models.loading import document_route, load_encoder
+
+    model = load_encoder(model_dir)
+    modules = document_route(model)
+    pooling = next(
+        (str(m.pooling_mode) for m in modules if getattr(m, "pooling_mode", None) is not None),
+        None,
+    )
+    routes = getattr(model[0], "sub_modules", None)
+    return {
+        "dimension": int(model.get_embedding_dimension()),
+        "pooling": pooling,
+        "normalized": type(modules[-1]).__name__ == "Normalize",
+        "similarity": str(model.similarity_fn_name or "cosine"),
+        "max_seq_length": int(model.max_seq_length),
+        "routes": sorted(routes) if routes is not None else None,
+    }
+
+
+def copy_model(src: Path, dst: Path) -> None:
+    """Copy a model folder without checkpoints or hidden files."""
+    for f in sorted(src.rglob("*")):
+        rel = f.relative_to(src)
+        if any(part.startswith(".") or part.startswith("checkpoint") for part in rel.parts):
+            continue
+        target = dst / rel
+        if f.is_dir():
+            target.mkdir(parents=True, exist_ok=True)
+        else:
+            target.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(f, target)

@@ -1,0 +1,97 @@
+"""Questions written by people, imported with origin ``human``.
+
+Each line of the questions file is ``{"id", "text", "doc_id", "quote"}`` (the quote locates the
+answer passage inside that document) or ``{"id", "text", "passage_id"}``.
+"""
+
+from __future__ import annotations
+
+import difflib
+from pathlib import Path
+
+from ballast.core.errors import InputError
+from ballast.core.text import collapse
+from ballast.io.files import read_jsonl, require_str
+
+
+def import_questions(path: str | Path, passages: list[dict]) -> list[dict]:
+    by_doc: dict[str, list[dict]] = {}
+    by_id = {p["id"]: p for p in passages}
+    for p in passages:
+        by_doc.setdefault(p["doc_id"], []).append(p)
+    out, seen = [], {}
+    for line, row in read_jsonl(path):
+        qid = require_str(row, "id", path=path, line=line)
+        text = require_str(row, "text", path=path, line=line)
+        if qid in seen:
+            raise InputError(
+                f"duplicate question id {qid!r} (first on line {seen[qid]})",
+                path=path,
+                line=line,
+                field="id",
+            )
+        seen[qid] = line
+        if "passage_id" in row:
+            pid = require_str(row, "passage_id", path=path, line=line)
+            if pid not in by_id:
+                raise InputError(
+                    f"no passage with id {pid!r} in the corpus",
+                    path=path,
+                    line=line,
+                    field="passage_id",
+                )
+            relevant = [pid]
+        else:
+            doc = require_str(row, "doc_id", path=path, line=line)
+            quote = require_str(row, "quote", path=path, line=line)
+            if doc not in by_doc:
+                raise InputError(
+                    f"no document {doc!r} among the ingested documents",
+                    path=path,
+                    line=line,
+                    field="doc_id",
+                )
+            relevant = locate(quote, by_doc[doc])
+            if not relevant:
+                raise InputError(
+                    f"quote not found in document {doc!r}; expected words copied "
+                    "from the passage that answers the question",
+                    path=path,
+                    line=line,
+                    field="quote",
+                )
+        out.append(
+            {
+                "id": qid,
+                "text": collapse(text),
+                "passage_id": relevant[0],
+                "origin": "human",
+                "meta": {"relevant": relevant},
+            }
+        )
+    return out
+
+
+def locate(quote: str, passages: list[dict]) -> list[str]:
+    """Passages holding the quote; else the one holding most of it (a quote cut by a chunk edge)."""
+    q = collapse(quote).lower()
+    texts = [collapse(p["text"]).lower() for p in passages]
+    hits = [p["id"] for p, t in zip(passages, texts, strict=True) if q in t]
+    if hits:
+        return hits
+    words = q.split()
+    for k in range(1, len(words)):  # the quote runs from the end of one passage into the next
+        head, tail = " ".join(words[:k]), " ".join(words[k:])
+        ends = [p["id"] for p, t in zip(passages, texts, strict=True) if t.endswith(head)]
+        starts = [p["id"] for p, t in zip(passages, texts, strict=True) if t.startswith(tail)]
+        if ends and starts:
+            return sorted(set(ends + starts), key=[p["id"] for p in passages].index)
+    best, best_len = None, 0
+    for p in passages:
+        t = collapse(p["text"]).lower()
+        m = difflib.SequenceMatcher(None, q, t, autojunk=False).find_longest_match(
+            0, len(q), 0, len(t)
+        )
+        if m.size > best_len:
+            best, best_len = p["id"], m.size
+    return [best] if best is not None and best_len >= 0.6 * len(q) else []

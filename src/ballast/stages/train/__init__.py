@@ -1,0 +1,248 @@
+"""Stage train: fine-tune the base model -> model/ and train.json."""
+
+from __future__ import annotations
+
+import functools
+from pathlib import Path
+from typing import Any
+
+from ballast import __version__
+from ballast.config.record import section_dict
+from ballast.core.errors import StageError
+from ballast.core.records import training_positive
+from ballast.io.files import atomic_dir, read_jsonl, write_json
+from ballast.stages.base import Run, Stage
+
+
+def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -> Any:
+    """The dev split's queries against the whole corpus, scored by the gate's primary metric,
+    for ``train.eval_steps``; an error when the split has no dev queries."""
+    from ballast.core.records import qrels_for
+    from ballast.stages.train.full import DevSet
+
+    qids = splits["queries"].get("dev", [])
+    if not qids:
+        raise StageError(
+            "train.eval_steps scores the dev split, which has no queries: set "
+            "split.dev_fraction above 0 (or train.eval_steps = 0)"
+        )
+    by_qid = {q["id"]: q for q in queries}
+    qrels = qrels_for(queries)
+    return DevSet(
+        [by_qid[q]["text"] for q in qids],
+        [qrels[q] for q in qids],
+        [p["id"] for p in passages],
+        [p["text"] for p in passages],
+        run.cfg.gate.primary_metric,
+        run.cfg.evaluate.batch_size,
+    )
+
+
+def train(run: Run) -> dict[str, Any]:
+    from ballast.stages.train.full import train_model
+
+    passages, queries, splits = run.passages(), run.queries(), run.splits()
+    by_pid = {p["id"]: p for p in passages}
+    by_qid = {q["id"]: q for q in queries}
+    negs = {
+        r["query_id"]: r
+        for _, r in read_jsonl(run.need("negatives.jsonl", "mine"), allow_empty=True)
+    }
+    train_pool = [p for p in passages if p["doc_id"] in set(splits["documents"]["train"])]
+    rng = run.rng("train")
+    want = run.cfg.mine.negatives
+    examples, indexed, padded = [], [], 0
+    for qid in splits["queries"]["train"]:
+        q = by_qid[qid]
+        pos = by_pid[q["passage_id"]]
+        neg = [by_pid[n["id"]]["text"] for n in negs.get(qid, {}).get("negatives", [])]
+        while len(neg) < want:  # too few mined: a random passage of another document
+            cand = train_pool[int(rng.integers(len(train_pool)))]
+            if cand["doc_id"] != pos["doc_id"] and cand["text"] not in neg:
+                neg.append(cand["text"])
+                padded += 1
+        examples.append(
+            {"anchor": q["text"], "positive": training_positive(q, pos), "negatives": neg}
+        )
+        indexed.append(pos["text"])
+    if len(examples) < 2:
+        raise StageError(
+            f"{len(examples)} training pair(s); need at least 2 — add documents "
+            "or lower split.test_fraction"
+        )
+    run.progress.info(
+        f"train: {len(examples)} pairs, {want} hard negative(s) each, "
+        f"{run.cfg.train.epochs} epoch(s)"
+    )
+    work = run.path(".train-work")
+    from ballast.stages.train.full import process_rank
+
+    adapter = run.cfg.train.mode == "adapter"
+    dev = (
+        dev_set(run, passages, queries, splits)
+        if run.cfg.train.eval_steps or (adapter and splits["queries"].get("dev"))
+        else None
+    )
+    fit = functools.partial(
+        train_model, run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
+        work_dir=work, dev=dev, progress=run.progress,
+    )  # fmt: skip
+    rank, world = process_rank()
+    if rank != 0:  # torchrun: a helper process trains its share and writes nothing
+        import tempfile
+
+        with tempfile.TemporaryDirectory() as scratch:
+            return fit(out_dir=Path(scratch))
+    with atomic_dir(run.path("model")) as tmp:
+        if adapter:
+            stats = train_frozen_adapter(run, examples, indexed, passages, dev, tmp)
+        else:
+            stats = fit(out_dir=tmp)
+        write_json(
+            tmp / "ballast_train.json",
+            {
+                "train": section_dict(run.cfg.train),
+                "seed": run.cfg.seed,
+                "base_model": run.cfg.base_model,
+                "base_fingerprint": run.base_fp,
+                "ballast": __version__,
+            },
+        )
+    import shutil
+
+    shutil.rmtree(work, ignore_errors=True)
+    stats["padded_negatives"] = padded
+    stats["processes"] = world
+    write_json(run.path("train.json"), stats)
+    return {k: v for k, v in stats.items() if k != "loss_history"}
+
+
+def train_frozen_adapter(
+    run: Run,
+    examples: list[dict],
+    indexed: list[str],
+    passages: list[dict],
+    dev: Any,
+    out_dir: Path,
+) -> dict[str, Any]:
+    """train.mode = "adapter": a linear map on the base model's cached embeddings.
+
+    Each query is pulled towards its passage as the index holds it (``indexed``: the whole
+    passage, not a masked inverse-cloze positive, whose embedding no index contains; measured
+    better on dev, docs/training.md). The passages' embeddings come from the cache the mine
+    stage filled; the queries are encoded once (and cached). With ``dev`` (the dev split has
+    queries) every epoch is scored there and the best map kept, the identity included. The
+    folder saved is the base model plus a Dense and a Normalize module: on the query route of a
+    sentence-transformers ``Router`` (query side; plain ``encode`` is the base model, the
+    document encoder) or for every text (both sides); ``adapter.safetensors`` holds the matrix
+    either way."""
+    import numpy as np
+
+    from ballast.models.encode import encode_cached
+    from ballast.models.loading import load_encoder
+    from ballast.models.query_map import (
+        ADAPTER_FILE,
+        append_dense,
+        route_queries,
+        save_adapter,
+    )
+    from ballast.stages.train.adapter import dev_scorer, train_adapter
+
+    cfg = run.cfg.train
+    if cfg.threads:
+        import torch
+
+        torch.set_num_threads(cfg.threads)
+    model = load_encoder(run.base_path, max_seq_length=cfg.max_seq_length)
+
+    def enc(texts: list[str], label: str) -> np.ndarray:
+        return encode_cached(
+            model,
+            run.base_fp,
+            texts,
+            run.cache(),
+            batch_size=run.cfg.evaluate.batch_size,
+            label=label,
+            progress=run.progress,
+        )
+
+    texts = [p["text"] for p in passages]
+    emb = enc(texts, "encoding passages (base)")
+    index = {t: i for i, t in enumerate(texts)}
+    n_neg = min((len(e["negatives"]) for e in examples), default=0)
+    pos_ids = np.array([index[t] for t in indexed], dtype=np.int64)
+    neg_ids = np.array(
+        [[index[t] for t in e["negatives"][:n_neg]] for e in examples], dtype=np.int64
+    ).reshape(len(examples), n_neg)
+    q_emb = enc([e["anchor"] for e in examples], "encoding training queries (base)")
+    score = None
+    if dev is not None:
+        score = dev_scorer(
+            enc(dev.query_texts, "encoding dev queries (base)"),
+            emb,
+            dev.passage_ids,
+            dev.qrels,
+            dev.metric,
+            cfg.adapter_side,
+        )
+    else:
+        run.progress.info(
+            "train: the dev split has no queries, so the adapter's epochs are not checked; "
+            "the last one is kept"
+        )
+    w, stats = train_adapter(
+        q_emb,
+        emb[pos_ids],
+        emb[neg_ids],
+        pos_ids,
+        neg_ids,
+        side=cfg.adapter_side,
+        rank=cfg.adapter_rank,
+        epochs=cfg.adapter_epochs,
+        batch_size=cfg.batch_size,
+        learning_rate=cfg.adapter_learning_rate,
+        seed=run.cfg.seed,
+        threads=cfg.threads or 1,
+        score=score,
+        patience=cfg.early_stopping_patience,
+        progress=run.progress,
+    )
+    if stats.get("best_epoch") == 0:
+        run.progress.info(
+            f"train: no adapter epoch beat the base model on dev ({dev.metric} "
+            f"{stats['dev_identity']:.4f}); the map saved is the identity"
+        )
+    if cfg.adapter_side == "both":
+        append_dense(model, w)
+    else:
+        model = route_queries(model, w)
+    model.save(str(out_dir), create_model_card=False, safe_serialization=True)
+    save_adapter(out_dir / ADAPTER_FILE, w, side=cfg.adapter_side, rank=cfg.adapter_rank)
+    return {
+        "mode": "adapter",
+        "adapter_side": cfg.adapter_side,
+        "pairs": len(examples),
+        "hard_negatives_per_pair": n_neg,
+        "pairs_per_second": round(
+            len(examples) * stats["epochs_run"] / max(stats["seconds"], 1e-9), 3
+        ),
+        **stats,
+        "resumed_from": None,
+    }
+
+
+STAGE = Stage(
+    "train",
+    train,
+    keys=(
+        "train",
+        "seed",
+        "base_model",
+        "mine.negatives",
+        "evaluate.batch_size",
+        "gate.primary_metric",  # the metric that picks the best dev checkpoint
+    ),
+    inputs=("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
+    outputs=("model", "train.json"),
+    base_model=True,
+)

@@ -1,0 +1,300 @@
+"""Fine-tuning with sentence-transformers on the CPU: every weight ("full") or LoRA ("lora").
+
+MultipleNegativesRankingLoss (in-batch negatives plus the mined hard negatives), batches drawn
+without duplicate texts, seeded data order and initialisation. ``train.loss = "cached_mnrl"``
+computes the same loss in chunks of ``mini_batch_size`` (GradCache, Gao et al. 2021). LoRA
+(Hu et al. 2021) wraps the inner transformer with peft and is merged before saving, so the
+model folder is a plain sentence-transformers model. The frozen-encoder adapter is adapter.py.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from ballast.config import TrainConfig
+from ballast.core.progress import SILENT, Progress
+from ballast.models.loading import load_encoder
+
+
+def process_rank() -> tuple[int, int]:
+    """(rank, world size) of this process when torchrun started it (PyTorch DDP); else (0, 1)."""
+    import os
+
+    return int(os.environ.get("RANK", "0")), int(os.environ.get("WORLD_SIZE", "1"))
+
+
+def cpu_bf16_native() -> bool:
+    """Whether this CPU has bfloat16 instructions (AVX-512 BF16 or AMX BF16, Linux flags);
+    without them bf16 autocast on the CPU is emulated and usually slower than float32."""
+    try:
+        flags = Path("/proc/cpuinfo").read_text("utf-8", errors="replace")
+    except OSError:
+        return False
+    return "avx512_bf16" in flags or "amx_bf16" in flags
+
+
+def use_bf16(setting: bool | str) -> bool:
+    """``train.bf16`` resolved: true or false as set; "auto" is on where bfloat16 arithmetic is
+    native (a CUDA GPU that supports it, or a CPU with AVX-512 BF16 or AMX) and off elsewhere,
+    where emulated autocast is much slower (docs/training.md)."""
+    if setting != "auto":
+        return bool(setting)
+    import torch
+
+    if torch.cuda.is_available():
+        return bool(torch.cuda.is_bf16_supported())
+    return cpu_bf16_native()
+
+
+def _callback(progress: Progress, history: list[dict]) -> Any:
+    from transformers import TrainerCallback
+
+    class Report(TrainerCallback):
+        def on_log(self, args, state, control, logs=None, **kw):  # noqa: ANN001
+            if logs and "loss" in logs:
+                history.append(
+                    {
+                        "step": state.global_step,
+                        "epoch": round(state.epoch or 0, 4),
+                        "loss": round(float(logs["loss"]), 6),
+                    }
+                )
+
+        def on_step_end(self, args, state, control, **kw):  # noqa: ANN001
+            progress.step("training", state.global_step, state.max_steps)
+
+    return Report()
+
+
+LORA_TARGETS = ["query", "value"]  # BERT's attention projections, as in Hu et al. 2021
+
+
+def _add_lora(model: Any, cfg: TrainConfig) -> None:
+    """Wrap the inner transformer with LoRA; only the low-rank matrices are trained."""
+    from peft import LoraConfig, get_peft_model
+
+    inner = model[0]
+    inner.model = get_peft_model(
+        inner.model,
+        LoraConfig(
+            r=cfg.lora_rank,
+            lora_alpha=cfg.lora_alpha,
+            lora_dropout=0.0,
+            target_modules=LORA_TARGETS,
+            bias="none",
+        ),
+    )
+
+
+@dataclass(frozen=True)
+class DevSet:
+    """Queries of the dev split and the corpus they search, for choosing the best checkpoint."""
+
+    query_texts: list[str]
+    qrels: list[dict[str, int]]
+    passage_ids: list[str]
+    passage_texts: list[str]
+    metric: str  # e.g. "ndcg@10": the gate's primary metric
+    batch_size: int = 64  # encoding batch (evaluate.batch_size)
+
+
+def _dev_evaluator(dev: DevSet, history: list[dict]) -> Any:
+    """An evaluator for the trainer: ranks the whole corpus for the dev queries with the model as
+    it is now and scores ``dev.metric`` with ballast's own metrics (ties by passage id, as in
+    ``ballast evaluate``)."""
+    from sentence_transformers.base.evaluation import BaseEvaluator
+
+    from ballast.core.scoring import mean_metric
+    from ballast.models.encode import encode
+
+    class DevEvaluator(BaseEvaluator):
+        def __init__(self) -> None:
+            super().__init__()
+            self.primary_metric = f"dev_{dev.metric}"
+
+        def __call__(self, model, output_path=None, epoch=-1, steps=-1):  # noqa: ANN001
+            p_emb = encode(model, dev.passage_texts, batch_size=dev.batch_size)
+            q_emb = encode(model, dev.query_texts, batch_size=dev.batch_size)
+            value = mean_metric(q_emb, p_emb, dev.passage_ids, dev.qrels, dev.metric)
+            history.append(
+                {"step": int(steps), "epoch": round(float(epoch), 4), dev.metric: round(value, 6)}
+            )
+            return {self.primary_metric: value}
+
+    return DevEvaluator()
+
+
+def _loss(model: Any, cfg: TrainConfig) -> Any:
+    from sentence_transformers.sentence_transformer.losses import (
+        CachedMultipleNegativesRankingLoss,
+        MatryoshkaLoss,
+        MultipleNegativesRankingLoss,
+    )
+
+    if cfg.loss == "cached_mnrl":
+        loss = CachedMultipleNegativesRankingLoss(model, mini_batch_size=cfg.mini_batch_size)
+    else:
+        loss = MultipleNegativesRankingLoss(model)
+    if cfg.matryoshka_dims:
+        full = model.get_sentence_embedding_dimension()
+        if max(cfg.matryoshka_dims) > full:
+            from ballast.core.errors import InputError
+
+            raise InputError(
+                f"dimension {max(cfg.matryoshka_dims)} is larger than the model's {full}",
+                field="train.matryoshka_dims",
+            )
+        loss = MatryoshkaLoss(model, loss, list(cfg.matryoshka_dims))
+    return loss
+
+
+def _merge_lora(model: Any) -> None:
+    inner = model[0]
+    inner.model = inner.model.merge_and_unload()
+
+
+def train_model(
+    base: Path,
+    examples: list[dict],
+    cfg: TrainConfig,
+    *,
+    seed: int,
+    out_dir: Path,
+    work_dir: Path,
+    dev: DevSet | None = None,
+    progress: Progress = SILENT,
+) -> dict[str, Any]:
+    """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``.
+
+    With ``cfg.eval_steps`` and a ``dev`` set, the dev metric is scored every ``eval_steps``
+    steps, the best-scoring checkpoint is the one saved, and with ``early_stopping_patience``
+    training stops after that many scores without a gain."""
+    import torch
+    from datasets import Dataset
+    from sentence_transformers import (
+        SentenceTransformerTrainer,
+        SentenceTransformerTrainingArguments,
+    )
+
+    if cfg.eval_steps and dev is None:
+        raise ValueError("train.eval_steps needs a dev set")
+    world = process_rank()[1]
+    bf16 = use_bf16(cfg.bf16)
+    if bf16 and not torch.cuda.is_available() and not cpu_bf16_native():
+        progress.info(
+            "train.bf16: this CPU has no bfloat16 instructions (avx512_bf16, amx_bf16); "
+            "autocast is emulated and likely slower than float32"
+        )
+    if cfg.threads:
+        torch.set_num_threads(cfg.threads)
+    torch.manual_seed(seed)
+    model = load_encoder(base, max_seq_length=cfg.max_seq_length)
+    # A non-empty widget list stops the trainer drawing model-card examples, which would
+    # use the global `random` state and draw a progress bar; ballast writes no model card.
+    model.model_card_data.widget = [{"text": ""}]
+    if cfg.mode == "lora":
+        _add_lora(model, cfg)
+    n_neg = min((len(e["negatives"]) for e in examples), default=0)
+    columns: dict[str, list[str]] = {
+        "anchor": [e["anchor"] for e in examples],
+        "positive": [e["positive"] for e in examples],
+    }
+    for j in range(n_neg):
+        columns[f"negative_{j + 1}"] = [e["negatives"][j] for e in examples]
+    dataset = Dataset.from_dict(columns)
+    steps_per_epoch = -(-len(examples) // cfg.batch_size)
+    save_steps = cfg.checkpoint_steps or cfg.eval_steps
+    dev_args: dict[str, Any] = {}
+    if cfg.eval_steps:
+        dev_args = {
+            "eval_strategy": "steps",
+            "eval_steps": cfg.eval_steps,
+            "load_best_model_at_end": True,
+            "metric_for_best_model": f"eval_dev_{dev.metric}",  # type: ignore[union-attr]
+            "greater_is_better": True,
+        }
+    args = SentenceTransformerTrainingArguments(
+        output_dir=str(work_dir),
+        num_train_epochs=cfg.epochs,
+        per_device_train_batch_size=cfg.batch_size,
+        learning_rate=cfg.learning_rate,
+        warmup_steps=cfg.warmup_ratio,
+        seed=seed,
+        data_seed=seed,
+        batch_sampler="no_duplicates",
+        save_strategy="steps" if save_steps else "no",
+        save_steps=save_steps or 500,
+        save_total_limit=2,
+        logging_steps=max(1, steps_per_epoch // 10),
+        report_to="none",
+        disable_tqdm=True,
+        use_cpu=not torch.cuda.is_available(),
+        # torchrun on CPUs: gloo; on GPUs the trainer picks NCCL itself
+        ddp_backend="gloo" if not torch.cuda.is_available() and world > 1 else None,
+        dataloader_num_workers=0,
+        bf16=bf16,
+        **dev_args,
+    )
+    history: list[dict] = []
+    dev_history: list[dict] = []
+    callbacks = [_callback(progress, history)]
+    if cfg.early_stopping_patience:
+        from transformers import EarlyStoppingCallback
+
+        callbacks.append(EarlyStoppingCallback(early_stopping_patience=cfg.early_stopping_patience))
+    trainer = SentenceTransformerTrainer(
+        model=model,
+        args=args,
+        train_dataset=dataset,
+        loss=_loss(model, cfg),
+        evaluator=_dev_evaluator(dev, dev_history) if cfg.eval_steps and dev else None,
+        callbacks=callbacks,
+    )
+    from transformers.trainer_callback import PrinterCallback
+
+    trainer.remove_callback(PrinterCallback)  # ballast reports progress itself
+    for cb in list(trainer.callback_handler.callbacks):
+        if type(cb).__name__.endswith("ModelCardCallback"):
+            trainer.remove_callback(cb)  # no model card: it would embed dates and examples
+    started = time.perf_counter()
+    resume = None
+    if save_steps:
+        ckpts = sorted(work_dir.glob("checkpoint-*"), key=lambda p: int(p.name.split("-")[1]))
+        resume = str(ckpts[-1]) if ckpts else None
+    result = trainer.train(resume_from_checkpoint=resume)
+    seconds = time.perf_counter() - started
+    if cfg.mode == "lora":
+        _merge_lora(model)
+    if trainer.is_world_process_zero():
+        model.save(str(out_dir), create_model_card=False, safe_serialization=True)
+    state = trainer.state
+    dev_info: dict[str, Any] = {}
+    if cfg.eval_steps:
+        best = state.best_model_checkpoint
+        dev_info = {
+            "dev_metric": dev.metric,  # type: ignore[union-attr]
+            "dev_history": dev_history,
+            "best_step": int(best.rsplit("-", 1)[1]) if best else None,
+            "best_dev": round(float(state.best_metric), 6)
+            if state.best_metric is not None
+            else None,
+            "stopped_early": int(result.global_step) < int(state.max_steps),
+        }
+    return {
+        "pairs": len(examples),
+        "hard_negatives_per_pair": n_neg,
+        "steps": int(result.global_step),
+        "seconds": round(seconds, 2),
+        "pairs_per_second": round(len(examples) * cfg.epochs / max(seconds, 1e-9), 3),
+        "batch_size_per_process": cfg.batch_size,
+        "final_loss": round(float(result.training_loss), 6),
+        "loss_history": history,
+        "resumed_from": Path(resume).name if resume else None,
+        "matryoshka_dims": list(cfg.matryoshka_dims),
+        "bf16": bf16,
+        "bf16_setting": cfg.bf16,
+        "bf16_native": cpu_bf16_native() if bf16 else None,
+    } | dev_info
