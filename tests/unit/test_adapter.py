@@ -104,11 +104,9 @@ def test_query_side_keeps_passage_embeddings(tmp_path) -> None:
     assert facts["side"] == "query" and facts["dim"] == 16 and facts["in_model"]
     assert "encode_query" in facts["note"]
     assert len(facts["sha256"]) == 64
-    # the adapter is only ever applied to queries: the passages the index holds are untouched,
-    # and retrieval scores are mapped query x base passage
-    assert np.array_equal(p, p.copy())
-    scores = apply(q, w) @ p.T
-    assert scores.shape == (200, 200)
+    # only queries are mapped: mapped queries ranked against the base passages (the index as it
+    # stands) find their planted partners better than the unmapped queries do
+    assert _accuracy(apply(q, w), p) > _accuracy(q, p)
 
 
 def test_both_sides_adapter_is_not_applied_again_to_queries(tmp_path) -> None:

@@ -16,13 +16,9 @@ from ballast.cli import app
 from ballast.config import load_run_config
 from ballast.stages import Run
 from ballast.stages.report import gather
-from ballast.stages.report.page import (
-    ReportInputs,
-    k_curves,
-    parse_run,
-    render_html,
-    render_markdown,
-)
+from ballast.stages.report.content import ReportInputs, k_curves, parse_run
+from ballast.stages.report.markdown import render_markdown
+from ballast.stages.report.page import render_html
 from tests.runfolder import SCRIPT, make_run
 
 runner = CliRunner()

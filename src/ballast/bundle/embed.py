@@ -8,10 +8,6 @@ With ``queries=True`` the texts are queries: a query-side adapter's matrix is ap
 
 from __future__ import annotations
 
-import contextlib
-import os
-import tempfile
-from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -19,25 +15,10 @@ import numpy as np
 
 from ballast.core.errors import InputError
 from ballast.core.progress import SILENT, Progress
-from ballast.io.files import write_bytes_atomic, write_text_atomic
+from ballast.io.files import atomic_path, write_bytes_atomic, write_text_atomic
 
 FORMATS = ("npy", "parquet")
 BACKENDS = ("pytorch", "onnx", "onnx-int8")
-
-
-@contextlib.contextmanager
-def _atomic_target(path: Path) -> Iterator[Path]:
-    """A temp path beside ``path`` that replaces it only if the block succeeds."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    tmp = Path(name)
-    try:
-        yield tmp
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
 
 
 def _encoder(bundle: Path, manifest: dict[str, Any], backend: str) -> tuple[Any, int]:
@@ -75,15 +56,12 @@ class _QueryEncoder:
     (what the routed model's ``encode_query`` computes; the ONNX graph is the document route)."""
 
     def __init__(self, encoder: Any, bundle: Path) -> None:
-        from ballast.models.query_map import query_adapter
+        from ballast.models.query_map import query_route
 
-        self.encoder, self.w = encoder, query_adapter(bundle)
+        self.encoder, self.to_query = encoder, query_route(bundle)
 
     def encode(self, texts: list[str], **kw: Any) -> np.ndarray:
-        from ballast.core.scoring import apply
-
-        emb = self.encoder.encode(texts, **kw)
-        return emb if self.w is None else apply(emb, self.w)
+        return self.to_query(self.encoder.encode(texts, **kw))
 
 
 def embed_file(
@@ -138,7 +116,7 @@ def embed_file(
     if fmt == "npy":
         target = out.with_name(name + ".npy")
         ids_path = out.with_name(name + ".ids.txt")
-        with _atomic_target(target) as tmp:
+        with atomic_path(target) as tmp:
             arr = np.lib.format.open_memmap(
                 tmp, mode="w+", dtype=np.float32, shape=(len(texts), dim)
             )

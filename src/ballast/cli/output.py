@@ -7,6 +7,8 @@ import sys
 import time
 from typing import Any
 
+from ballast.core.records import metric_rows
+
 
 class StderrProgress:
     """Progress lines on stderr; redraws in place on a terminal, throttled lines otherwise."""
@@ -84,12 +86,12 @@ def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
             means = "".join(f" {info['models'][n][m]['mean']:10.4f}" for n in names)
             tails = []
             for n in names:
-                c = info["comparisons"].get(f"{n}_vs_{base}", {}).get(m)
-                if c:
+                (r,) = metric_rows(info, [m], model=n, baseline=base)
+                if r.compared:
                     label = f"{n}: " if len(names) > 2 else ""
                     tails.append(
-                        f"{label}{c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, "
-                        f"{c['ci_high']:+.4f}] p={c['p_value']:.4f}"
+                        f"{label}{r.diff:+.4f} [{r.ci_low:+.4f}, {r.ci_high:+.4f}] "
+                        f"p={r.p_value:.4f}"
                     )
             lines.append(f"  {m:<12}{means}   {'; '.join(tails)}")
     return "\n".join(lines)

@@ -16,33 +16,49 @@ from ballast.core.errors import InputError
 from ballast.core.text import sha256_bytes
 
 
+def _umask() -> int:
+    old = os.umask(0o022)
+    os.umask(old)
+    return old
+
+
 def _tmp_beside(path: Path) -> Path:
+    """An empty temp file beside ``path``, with the permissions the user's umask gives a new
+    file (mkstemp makes it 0600; a bundle is read by other users and services)."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.fchmod(fd, 0o666 & ~_umask())
     os.close(fd)
     return Path(name)
 
 
 @contextlib.contextmanager
-def _atomic_file(path: str | Path) -> Iterator[Any]:
-    """A binary file handle on a temp file beside ``path``; on a clean exit it is flushed,
-    fsynced and renamed over ``path``; on any error it is removed and ``path`` is untouched."""
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """A temp path beside ``path`` for a writer that wants a file name (``np.save``, a model
+    assembler); renamed over ``path`` when the block succeeds, removed when it fails."""
     path = Path(path)
     tmp = _tmp_beside(path)
     try:
-        with open(tmp, "wb") as fh:
-            yield fh
-            fh.flush()
-            os.fsync(fh.fileno())
+        yield tmp
         os.replace(tmp, path)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
 
 
+@contextlib.contextmanager
+def atomic_file(path: str | Path) -> Iterator[Any]:
+    """A binary file handle on a temp file beside ``path``; on a clean exit it is flushed,
+    fsynced and renamed over ``path``; on any error it is removed and ``path`` is untouched."""
+    with atomic_path(path) as tmp, open(tmp, "wb") as fh:
+        yield fh
+        fh.flush()
+        os.fsync(fh.fileno())
+
+
 def write_bytes_atomic(path: str | Path, data: bytes) -> None:
     """Write to a temp file beside ``path``, fsync, then rename over it."""
-    with _atomic_file(path) as fh:
+    with atomic_file(path) as fh:
         fh.write(data)
 
 
@@ -62,7 +78,7 @@ def write_json(path: str | Path, obj: Any) -> None:
 def write_jsonl(path: str | Path, rows: Iterable[dict]) -> None:
     """One JSON object a line, streamed to a temp file beside ``path``, then renamed over it
     (rows may be a generator: memory stays one row deep)."""
-    with _atomic_file(path) as fh:
+    with atomic_file(path) as fh:
         for r in rows:
             fh.write((dumps(r) + "\n").encode("utf-8"))
 
@@ -73,6 +89,7 @@ def atomic_dir(path: str | Path) -> Iterator[Path]:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent))
+    os.chmod(tmp, 0o777 & ~_umask())  # mkdtemp makes it 0700
     try:
         yield tmp
         old = None

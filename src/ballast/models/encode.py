@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import os
-import tempfile
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
@@ -13,6 +11,7 @@ import numpy as np
 
 from ballast.core.progress import SILENT, Progress
 from ballast.core.text import sha256_bytes
+from ballast.io.files import atomic_file
 
 
 @contextlib.contextmanager
@@ -88,16 +87,8 @@ class EmbeddingCache:
         return arr if arr.shape[0] == len(texts) else None
 
     def put(self, model_fp: str, texts: list[str], max_seq_length: int, emb: np.ndarray) -> None:
-        path = self._path(model_fp, texts, max_seq_length)
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=path.parent, suffix=".tmp")
-        try:
-            with os.fdopen(fd, "wb") as fh:
-                np.save(fh, emb, allow_pickle=False)
-            os.replace(tmp, path)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
+        with atomic_file(self._path(model_fp, texts, max_seq_length)) as fh:
+            np.save(fh, emb, allow_pickle=False)
 
 
 def encode_cached(

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from ballast.core.errors import InputError
+from ballast.io.files import atomic_path
 
 PACKAGED_LLM = "packaged:gemma-3-270m"
 
@@ -55,14 +56,8 @@ def packaged_gguf() -> Path:
         st = target.stat()
         if _cached_sha(str(target), st.st_mtime_ns, st.st_size) == gemma.EXPECTED_SHA256:
             return target
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmp = target.with_name(f".{target.name}.{os.getpid()}.tmp")
-    try:
+    with atomic_path(target) as tmp:
         gemma.assemble(tmp, overwrite=True)  # checks the sha256 of what it wrote
-        os.replace(tmp, target)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
     return target
 
 

@@ -3,6 +3,7 @@ sentence-transformers modules that apply it (a ``Router`` whose query route hold
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -45,6 +46,18 @@ def query_adapter(model_dir: Path) -> np.ndarray | None:
     if got is None or got[1].get("side") != "query":
         return None
     return got[0]
+
+
+def query_route(model_dir: Path) -> Callable[[np.ndarray], np.ndarray]:
+    """What a model folder does to a query's embedding after its document encoder: its
+    query-side map (``normalize(W e)``, what the routed model's ``encode_query`` computes), or
+    nothing. Evaluation, ``ballast embed --queries`` and the ONNX backends all use this one."""
+    w = query_adapter(model_dir)
+    if w is None:
+        return lambda emb: emb
+    from ballast.core.scoring import apply
+
+    return lambda emb: apply(emb, w)
 
 
 def adapter_facts(model_dir: Path) -> dict[str, Any] | None:

@@ -55,17 +55,16 @@ def run_models(
     Each of ``dims`` smaller than a model's embedding size adds a model ``NAME@DIM``: the same
     embeddings truncated to their first DIM dimensions (no second encoding). With two or more
     ``devices``, corpora are encoded by one process per device."""
-    from ballast.core.scoring import apply as apply_adapter
     from ballast.models.encode import device_pool, encode_cached
     from ballast.models.loading import load_encoder
-    from ballast.models.query_map import query_adapter
+    from ballast.models.query_map import query_route
 
     k = depth(metrics)
     per_query: dict[str, dict[str, dict[str, np.ndarray]]] = {s.name: {} for s in sets}
     run_files: dict[str, str] = {}
     for name, (path, fp) in models.items():
         model = load_encoder(path, max_seq_length=max_seq_length)
-        q_map = query_adapter(path)  # a query-side adapter maps queries only (adapter.py)
+        to_query = query_route(path)  # a query-side adapter maps queries only
         with device_pool(model, devices) as pool:
             p_emb = {
                 c: encode_cached(
@@ -81,17 +80,17 @@ def run_models(
                 for c in sorted({s.corpus for s in sets})
             }
         for s in sets:
-            q_emb = encode_cached(
-                model,
-                fp,
-                s.texts,
-                cache,
-                batch_size=batch_size,
-                label=f"encoding {s.name} queries ({name})",
-                progress=progress,
+            q_emb = to_query(
+                encode_cached(
+                    model,
+                    fp,
+                    s.texts,
+                    cache,
+                    batch_size=batch_size,
+                    label=f"encoding {s.name} queries ({name})",
+                    progress=progress,
+                )
             )
-            if q_map is not None:
-                q_emb = apply_adapter(q_emb, q_map)
             full = q_emb.shape[1]
             for d in [full, *(d for d in dims if d < full)]:
                 label = name if d == full else f"{name}@{d}"

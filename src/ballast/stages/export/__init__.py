@@ -7,6 +7,7 @@ from typing import Any
 
 from ballast.config.record import section_dict
 from ballast.core.errors import GateFailed, StageError
+from ballast.core.records import metric_rows
 from ballast.io.files import atomic_dir, sha256_file, write_json
 from ballast.stages.base import Run, Stage
 
@@ -36,16 +37,15 @@ def export(run: Run) -> dict[str, Any]:
         raise StageError(f"bundle path {target} would leave the export folder {root}")
     gated = {}
     for s, info in metrics["splits"].items():
-        comp = info["comparisons"].get("tuned_vs_base", {})
         gated[s] = {
-            m: {
-                "base": info["models"]["base"][m]["mean"],
-                "tuned": info["models"]["tuned"][m]["mean"],
-                "diff": comp.get(m, {}).get("mean_diff"),
-                "ci": [comp.get(m, {}).get("ci_low"), comp.get(m, {}).get("ci_high")],
-                "p_value": comp.get(m, {}).get("p_value"),
+            r.metric: {
+                "base": r.base,
+                "tuned": r.tuned,
+                "diff": r.diff,
+                "ci": [r.ci_low, r.ci_high],
+                "p_value": r.p_value,
             }
-            for m in metrics["metrics"]
+            for r in metric_rows(info, metrics["metrics"])
         } | {"n_queries": info["n_queries"]}
     train_stats = (
         json.loads(run.path("train.json").read_text("utf-8"))

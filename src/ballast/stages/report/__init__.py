@@ -50,7 +50,7 @@ def _guard_texts(run: Run) -> tuple[dict[str, dict], dict[str, dict], dict[str, 
 def gather(run: Run) -> Any:
     """Everything the report shows, read from the run folder."""
     from ballast.io.trec import read_qrels
-    from ballast.stages.report.page import ReportInputs, parse_run
+    from ballast.stages.report.content import ReportInputs, parse_run
 
     metrics = json.loads(run.need("metrics.json", "evaluate").read_text("utf-8"))
     names = list(metrics.get("splits", {}))
@@ -96,7 +96,9 @@ def gather(run: Run) -> Any:
 
 
 def report(run: Run) -> dict[str, Any]:
-    from ballast.stages.report.page import render_html, render_markdown, summary_facts
+    from ballast.stages.report.content import summary_facts
+    from ballast.stages.report.markdown import render_markdown
+    from ballast.stages.report.page import render_html
 
     run.progress.info("report: reading the run folder")
     inp = gather(run)

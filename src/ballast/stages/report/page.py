@@ -1,5 +1,6 @@
-"""The run report: one self-contained HTML page (inline SVG, no scripts, no external assets)
-and a Markdown twin. Pure: everything comes in as data and goes out as strings.
+"""The run report: one self-contained HTML page (inline SVG, no scripts, no external assets);
+its Markdown twin is markdown.py, what both say is content.py. Pure: everything comes in as
+data and goes out as strings.
 
 Every piece of text that comes from documents, queries or files is escaped with
 ``html.escape``; the page also carries a Content-Security-Policy that allows no script at all.
@@ -8,15 +9,10 @@ Every piece of text that comes from documents, queries or files is escaped with
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
 from ballast import __version__
-from ballast.core.metrics import ndcg_at_k, recall_at_k
-from ballast.core.stats import paired_bootstrap_ci
+from ballast.core.records import metric_rows
 from ballast.stages.report.charts import (
     BASE,
     COLOURS,
@@ -27,216 +23,26 @@ from ballast.stages.report.charts import (
     forest_svg,
     lines_svg,
 )
-
-SHOWN = ("ndcg@10", "mrr@10", "recall@10")
-EXAMPLES = 5  # worst regressions and best wins shown per split
-TOP_PASSAGES = 3  # passages shown per model for each example
-SNIPPET = 320  # characters of passage text shown
-
-# A ranking: query id -> [(passage id, score), ...] best first.
-Ranking = dict[str, list[tuple[str, float]]]
-
-
-@dataclass(frozen=True)
-class ReportInputs:
-    """What the report reads from a run folder, already parsed."""
-
-    name: str
-    metrics: dict[str, Any]  # metrics.json
-    gate: dict[str, Any] | None  # gate.json
-    per_query: list[dict[str, Any]]  # per_query.csv rows; metric columns as floats
-    runs: dict[str, dict[str, Ranking]]  # model -> split -> ranking (TREC run files)
-    qrels: dict[str, dict[str, dict[str, int]]]  # split -> query id -> {passage id: grade}
-    queries: dict[str, dict[str, Any]]  # query id -> {"text", "origin", ...}
-    passages: dict[str, dict[str, Any]]  # passage id -> {"text", "doc_id", "title"?}
-    stages: dict[str, dict[str, Any]] = field(default_factory=dict)  # stage -> done summary
-    train: dict[str, Any] | None = None  # train.json
-    notes: tuple[str, ...] = ()
-
-
-def parse_run(text: str) -> Ranking:
-    """A TREC run file (``qid Q0 docid rank score tag``) as rankings sorted by rank."""
-    rows: dict[str, list[tuple[int, str, float]]] = {}
-    for line in text.splitlines():
-        parts = line.split()
-        if len(parts) < 6:
-            continue
-        q, _, d, r, s = parts[:5]
-        rows.setdefault(q, []).append((int(r), d, float(s)))
-    return {q: [(d, s) for _, d, s in sorted(v)] for q, v in rows.items()}
-
-
-def k_curves(
-    ranking: Ranking, qrels: Mapping[str, Mapping[str, int]], qids: Sequence[str], max_k: int
-) -> dict[str, list[float]]:
-    """Mean recall@k and nDCG@k for k = 1..max_k, from a stored ranking (no re-encoding)."""
-    ranked = [[d for d, _ in ranking.get(q, [])] for q in qids]
-    rels = [qrels.get(q, {}) for q in qids]
-    out: dict[str, list[float]] = {"recall": [], "ndcg": []}
-    for k in range(1, max_k + 1):
-        out["recall"].append(float(np.mean(recall_at_k(ranked, rels, k))) if qids else 0.0)
-        out["ndcg"].append(float(np.mean(ndcg_at_k(ranked, rels, k))) if qids else 0.0)
-    return out
-
-
-def mean_interval(
-    values: Sequence[float], *, seed: int, confidence: float, resamples: int = 2000
-) -> tuple[float, float]:
-    """Percentile bootstrap interval of one model's mean (queries resampled)."""
-    arr = np.asarray(values, dtype=np.float64)
-    if arr.size < 2:
-        m = float(arr.mean()) if arr.size else 0.0
-        return m, m
-    return paired_bootstrap_ci(
-        arr, rng=np.random.default_rng(seed), n_resamples=resamples, confidence=confidence
-    )
-
+from ballast.stages.report.content import (
+    SHOWN,
+    TOP_PASSAGES,
+    Example,
+    ReportInputs,
+    _counts,
+    _curves,
+    _diffs,
+    _examples,
+    _gate_words,
+    _num,
+    _passage_text,
+    _per_query_values,
+    _primary,
+    _split_names,
+    mean_interval,
+)
 
 # ---------------------------------------------------------------------------------------
 # The facts the report shows, computed once and rendered twice (HTML and Markdown).
-
-
-def _split_names(inp: ReportInputs) -> list[str]:
-    return list(inp.metrics.get("splits", {}))
-
-
-def _primary(inp: ReportInputs) -> str:
-    if inp.gate and inp.gate.get("primary_metric"):
-        return str(inp.gate["primary_metric"])
-    ms = inp.metrics.get("metrics", [])
-    return "ndcg@10" if "ndcg@10" in ms else (ms[0] if ms else "ndcg@10")
-
-
-def _per_query_values(inp: ReportInputs, split: str, model: str, metric: str) -> dict[str, float]:
-    return {
-        r["query_id"]: float(r[metric])
-        for r in inp.per_query
-        if r["split"] == split and r["model"] == model and metric in r
-    }
-
-
-def _diffs(inp: ReportInputs, split: str, metric: str) -> list[tuple[str, float]]:
-    base = _per_query_values(inp, split, BASE, metric)
-    tuned = _per_query_values(inp, split, TUNED, metric)
-    return sorted(((q, tuned[q] - base[q]) for q in base if q in tuned), key=lambda x: (x[1], x[0]))
-
-
-def _gate_words(gate: dict[str, Any] | None) -> list[str]:
-    """The verdict as sentences a person reads."""
-    if gate is None:
-        return ["The gate has not run yet, so nothing has been decided."]
-    m = gate.get("primary_metric", "the primary metric")
-    lines = [
-        (
-            "The tuned model passed the release gate: it may be exported and indexed."
-            if gate["passed"]
-            else "The tuned model did NOT pass the release gate: it is not released "
-            "(`ballast export --force` overrides this, and the manifest records it)."
-        ),
-        f"Rule: on every gated split the tuned model must gain on {m} by at least "
-        f"{gate.get('min_gain', 0):+.4f}, with the whole interval of the gain above zero "
-        f"and the randomization test significant after Holm correction.",
-    ]
-    for s in gate.get("splits", []):
-        verdict = "passed" if s.get("passed") else "failed"
-        lines.append(f"Split {s['split']} {verdict}: {s.get('reason', '')}")
-    return lines
-
-
-def _flatten(prefix: str, obj: Any) -> list[tuple[str, str]]:
-    """Nested summary dicts as ("a.b", "value") rows, keys sorted."""
-    if isinstance(obj, dict):
-        rows = []
-        for k in sorted(obj):
-            sub = f"{prefix}{k}." if isinstance(obj[k], dict) else f"{prefix}{k}"
-            rows += _flatten(sub, obj[k])
-        return rows
-    if isinstance(obj, list):
-        return [(prefix, ", ".join(str(x) for x in obj) or "none")]
-    return [(prefix, "none" if obj is None else str(obj))]
-
-
-def _counts(inp: ReportInputs) -> list[tuple[str, list[tuple[str, str]]]]:
-    """Synthesis, filtering and mining counts, flattened from the stages' summaries."""
-    out = []
-    for stage in ("ingest", "synth", "split", "mine", "train"):
-        summary = inp.stages.get(stage)
-        if summary:
-            rows = _flatten("", {k: v for k, v in summary.items() if k != "loss_history"})
-            out.append((stage, rows))
-    return out
-
-
-@dataclass(frozen=True)
-class Example:
-    query_id: str
-    text: str
-    origin: str
-    diff: float
-    base_value: float
-    tuned_value: float
-    relevant: list[str]
-    top: dict[str, list[tuple[int, str, float, bool]]]  # model -> (rank, pid, score, relevant)
-
-
-def _examples(inp: ReportInputs, split: str, metric: str) -> tuple[list[Example], list[Example]]:
-    diffs = _diffs(inp, split, metric)
-    base = _per_query_values(inp, split, BASE, metric)
-    tuned = _per_query_values(inp, split, TUNED, metric)
-    rels = inp.qrels.get(split, {})
-
-    def make(q: str, d: float) -> Example:
-        qrow = inp.queries.get(q, {})
-        relevant = sorted(p for p, g in rels.get(q, {}).items() if g > 0)
-        top = {}
-        for model in (BASE, TUNED):
-            ranking = inp.runs.get(model, {}).get(split, {}).get(q, [])
-            top[model] = [
-                (i + 1, pid, s, pid in relevant)
-                for i, (pid, s) in enumerate(ranking[:TOP_PASSAGES])
-            ]
-        return Example(
-            q,
-            str(qrow.get("text", "(query text not found)")),
-            str(qrow.get("origin", "")),
-            d,
-            base.get(q, 0.0),
-            tuned.get(q, 0.0),
-            relevant,
-            top,
-        )
-
-    losses = [make(q, d) for q, d in diffs if d < 0][:EXAMPLES]
-    wins = [make(q, d) for q, d in reversed(diffs) if d > 0][:EXAMPLES]
-    return losses, wins
-
-
-def _passage_text(inp: ReportInputs, pid: str) -> str:
-    p = inp.passages.get(pid)
-    if p is None:
-        return "(passage text not found)"
-    text = " ".join(str(p.get("text", "")).split())
-    return text if len(text) <= SNIPPET else text[: SNIPPET - 1].rstrip() + "…"
-
-
-def _max_k(inp: ReportInputs) -> int:
-    ks = [len(r) for m in inp.runs.values() for s in m.values() for r in s.values()]
-    return max(ks) if ks else 0
-
-
-def _curves(inp: ReportInputs, split: str) -> dict[str, dict[str, list[float]]] | None:
-    qrels = inp.qrels.get(split)
-    max_k = _max_k(inp)
-    if not qrels or max_k == 0:
-        return None
-    out = {}
-    for model in (BASE, TUNED):
-        ranking = inp.runs.get(model, {}).get(split)
-        if ranking is None:
-            return None
-        qids = sorted(q for q in ranking if q in qrels)
-        out[model] = k_curves(ranking, qrels, qids, max_k)
-    return out
 
 
 # ---------------------------------------------------------------------------------------
@@ -270,28 +76,18 @@ DASHED = ("base nDCG", "tuned nDCG")
 CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:"
 
 
-def _num(x: Any, fmt: str = ".4f") -> str:
-    if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return "–"
-    return format(x, fmt)
-
-
 def _metric_table(info: dict[str, Any], metrics: list[str], pct: str) -> str:
-    comp = info.get("comparisons", {}).get(f"{TUNED}_vs_{BASE}", {})
     rows = [
         "<table><tr><th class=l>metric</th><th>base</th><th>tuned</th><th>difference</th>"
         f"<th>{E(pct)} interval</th><th>p (randomization)</th><th>better / worse / tied</th></tr>"
     ]
-    for m in metrics:
-        b = info["models"].get(BASE, {}).get(m, {}).get("mean")
-        t = info["models"].get(TUNED, {}).get(m, {}).get("mean")
-        c = comp.get(m, {})
-        ci = f"[{_num(c.get('ci_low'), '+.4f')}, {_num(c.get('ci_high'), '+.4f')}]" if c else "–"
-        wlt = f"{c['wins']} / {c['losses']} / {c['ties']}" if c else "–"
+    for r in metric_rows(info, metrics, model=TUNED, baseline=BASE):
+        ci = f"[{_num(r.ci_low, '+.4f')}, {_num(r.ci_high, '+.4f')}]" if r.compared else "–"
+        wlt = f"{r.wins} / {r.losses} / {r.ties}" if r.compared else "–"
         rows.append(
-            f"<tr><td class=l>{E(m)}</td><td>{_num(b)}</td><td>{_num(t)}</td>"
-            f"<td>{_num(c.get('mean_diff'), '+.4f')}</td><td>{ci}</td>"
-            f"<td>{_num(c.get('p_value'))}</td><td>{wlt}</td></tr>"
+            f"<tr><td class=l>{E(r.metric)}</td><td>{_num(r.base)}</td><td>{_num(r.tuned)}</td>"
+            f"<td>{_num(r.diff, '+.4f')}</td><td>{ci}</td>"
+            f"<td>{_num(r.p_value)}</td><td>{wlt}</td></tr>"
         )
     rows.append("</table>")
     return "".join(rows)
@@ -474,91 +270,3 @@ def render_html(inp: ReportInputs) -> str:
 # Markdown
 
 
-def _md(text: str) -> str:
-    """Text safe inside a Markdown table cell or paragraph: HTML escaped, pipes escaped."""
-    return E(" ".join(str(text).split())).replace("|", "\\|")
-
-
-def render_markdown(inp: ReportInputs) -> str:
-    metrics = inp.metrics
-    names = [m for m in metrics.get("metrics", []) if isinstance(m, str)]
-    primary = _primary(inp)
-    pct = f"{100 * float(metrics.get('confidence', 0.95)):g}%"
-    words = _gate_words(inp.gate)
-    out = [f"# ballast report: {_md(inp.name)}", "", f"**{_md(words[0])}**", ""]
-    out += [f"- {_md(w)}" for w in words[1:]]
-    out += [""] + [f"_{_md(n)}_" for n in inp.notes]
-    out += ["", "Charts are in report.html beside this file.", "", "## Base and tuned, per split"]
-    for s, info in metrics.get("splits", {}).items():
-        comp = info.get("comparisons", {}).get(f"{TUNED}_vs_{BASE}", {})
-        out += [
-            "",
-            f"### Split {_md(s)} ({info.get('n_queries', 0)} queries)",
-            "",
-            f"| metric | base | tuned | difference | {pct} interval | p | better/worse/tied |",
-            "|---|---:|---:|---:|---:|---:|---:|",
-        ]
-        for m in names:
-            b = info["models"].get(BASE, {}).get(m, {}).get("mean")
-            t = info["models"].get(TUNED, {}).get(m, {}).get("mean")
-            c = comp.get(m, {})
-            ci = f"[{_num(c.get('ci_low'), '+.4f')}, {_num(c.get('ci_high'), '+.4f')}]"
-            wlt = f"{c['wins']}/{c['losses']}/{c['ties']}" if c else "–"
-            out.append(
-                f"| {_md(m)} | {_num(b)} | {_num(t)} | {_num(c.get('mean_diff'), '+.4f')} | "
-                f"{ci if c else '–'} | {_num(c.get('p_value'))} | {wlt} |"
-            )
-        cv = _curves(inp, s)
-        if cv is not None:
-            ks = range(1, len(cv[BASE]["recall"]) + 1)
-            out += ["", "| k | " + " | ".join(str(k) for k in ks) + " |"]
-            out.append("|---|" + "---:|" * len(ks))
-            for model in (BASE, TUNED):
-                for key in ("recall", "ndcg"):
-                    vals = " | ".join(f"{v:.3f}" for v in cv[model][key])
-                    out.append(f"| {model} {key}@k | {vals} |")
-        losses, wins = _examples(inp, s, primary)
-        for title, exs in (("Worst regressions", losses), ("Best wins", wins)):
-            out += ["", f"#### {title} ({_md(primary)})", ""]
-            if not exs:
-                out.append("None.")
-            for e in exs:
-                out.append(
-                    f"- **{_md(e.text)}** (`{_md(e.query_id)}`): {e.base_value:.4f} → "
-                    f"{e.tuned_value:.4f} ({e.diff:+.4f})"
-                )
-                for model in (BASE, TUNED):
-                    for rank, pid, _, relevant in e.top.get(model, []):
-                        mark = " ✓" if relevant else ""
-                        out.append(
-                            f"  - {model} #{rank}{mark} `{_md(pid)}`: "
-                            f"{_md(_passage_text(inp, pid))}"
-                        )
-    out += ["", "## Data: synthesis, filtering and mining"]
-    for stage, rows in _counts(inp):
-        out += ["", f"### {_md(stage)}", "", "| count | value |", "|---|---:|"]
-        out += [f"| {_md(k)} | {_md(v)} |" for k, v in rows]
-    hist = (inp.train or {}).get("loss_history") or []
-    if hist:
-        first, last = hist[0], hist[-1]
-        out += [
-            "",
-            "## Training loss",
-            "",
-            f"{len(hist)} logged steps; loss {float(first['loss']):.4f} at step {first['step']}, "
-            f"{float(last['loss']):.4f} at step {last['step']}.",
-        ]
-    return "\n".join(out) + "\n"
-
-
-def summary_facts(inp: ReportInputs) -> dict[str, Any]:
-    """A few numbers for the stage summary (what `ballast report --json` prints)."""
-    primary = _primary(inp)
-    out: dict[str, Any] = {"primary_metric": primary, "better_worse_tied": {}}
-    for s in _split_names(inp):
-        d = [x for _, x in _diffs(inp, s, primary)]
-        out["better_worse_tied"][s] = (
-            f"{sum(x > 0 for x in d)}/{sum(x < 0 for x in d)}/{sum(x == 0 for x in d)}"
-        )
-    out["gate_passed"] = None if inp.gate is None else bool(inp.gate.get("passed"))
-    return out

@@ -1,0 +1,248 @@
+"""What the report says, as data: its inputs, the examples of queries that gained and lost, the
+metric-vs-k curves recomputed from the run files, the verdict in words, the data counts. Pure;
+page.py renders it as HTML and markdown.py as Markdown."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ballast.core.metrics import ndcg_at_k, recall_at_k
+from ballast.core.stats import paired_bootstrap_ci
+from ballast.stages.report.charts import BASE, TUNED
+
+SHOWN = ("ndcg@10", "mrr@10", "recall@10")
+
+
+EXAMPLES = 5  # worst regressions and best wins shown per split
+
+
+TOP_PASSAGES = 3  # passages shown per model for each example
+
+
+SNIPPET = 320  # characters of passage text shown
+
+
+# A ranking: query id -> [(passage id, score), ...] best first.
+Ranking = dict[str, list[tuple[str, float]]]
+
+
+@dataclass(frozen=True)
+class ReportInputs:
+    """What the report reads from a run folder, already parsed."""
+
+    name: str
+    metrics: dict[str, Any]  # metrics.json
+    gate: dict[str, Any] | None  # gate.json
+    per_query: list[dict[str, Any]]  # per_query.csv rows; metric columns as floats
+    runs: dict[str, dict[str, Ranking]]  # model -> split -> ranking (TREC run files)
+    qrels: dict[str, dict[str, dict[str, int]]]  # split -> query id -> {passage id: grade}
+    queries: dict[str, dict[str, Any]]  # query id -> {"text", "origin", ...}
+    passages: dict[str, dict[str, Any]]  # passage id -> {"text", "doc_id", "title"?}
+    stages: dict[str, dict[str, Any]] = field(default_factory=dict)  # stage -> done summary
+    train: dict[str, Any] | None = None  # train.json
+    notes: tuple[str, ...] = ()
+
+
+def parse_run(text: str) -> Ranking:
+    """A TREC run file (``qid Q0 docid rank score tag``) as rankings sorted by rank."""
+    rows: dict[str, list[tuple[int, str, float]]] = {}
+    for line in text.splitlines():
+        parts = line.split()
+        if len(parts) < 6:
+            continue
+        q, _, d, r, s = parts[:5]
+        rows.setdefault(q, []).append((int(r), d, float(s)))
+    return {q: [(d, s) for _, d, s in sorted(v)] for q, v in rows.items()}
+
+
+def k_curves(
+    ranking: Ranking, qrels: Mapping[str, Mapping[str, int]], qids: Sequence[str], max_k: int
+) -> dict[str, list[float]]:
+    """Mean recall@k and nDCG@k for k = 1..max_k, from a stored ranking (no re-encoding)."""
+    ranked = [[d for d, _ in ranking.get(q, [])] for q in qids]
+    rels = [qrels.get(q, {}) for q in qids]
+    out: dict[str, list[float]] = {"recall": [], "ndcg": []}
+    for k in range(1, max_k + 1):
+        out["recall"].append(float(np.mean(recall_at_k(ranked, rels, k))) if qids else 0.0)
+        out["ndcg"].append(float(np.mean(ndcg_at_k(ranked, rels, k))) if qids else 0.0)
+    return out
+
+
+def mean_interval(
+    values: Sequence[float], *, seed: int, confidence: float, resamples: int = 2000
+) -> tuple[float, float]:
+    """Percentile bootstrap interval of one model's mean (queries resampled)."""
+    arr = np.asarray(values, dtype=np.float64)
+    if arr.size < 2:
+        m = float(arr.mean()) if arr.size else 0.0
+        return m, m
+    return paired_bootstrap_ci(
+        arr, rng=np.random.default_rng(seed), n_resamples=resamples, confidence=confidence
+    )
+
+
+def _split_names(inp: ReportInputs) -> list[str]:
+    return list(inp.metrics.get("splits", {}))
+
+
+def _primary(inp: ReportInputs) -> str:
+    if inp.gate and inp.gate.get("primary_metric"):
+        return str(inp.gate["primary_metric"])
+    ms = inp.metrics.get("metrics", [])
+    return "ndcg@10" if "ndcg@10" in ms else (ms[0] if ms else "ndcg@10")
+
+
+def _per_query_values(inp: ReportInputs, split: str, model: str, metric: str) -> dict[str, float]:
+    return {
+        r["query_id"]: float(r[metric])
+        for r in inp.per_query
+        if r["split"] == split and r["model"] == model and metric in r
+    }
+
+
+def _diffs(inp: ReportInputs, split: str, metric: str) -> list[tuple[str, float]]:
+    base = _per_query_values(inp, split, BASE, metric)
+    tuned = _per_query_values(inp, split, TUNED, metric)
+    return sorted(((q, tuned[q] - base[q]) for q in base if q in tuned), key=lambda x: (x[1], x[0]))
+
+
+def _gate_words(gate: dict[str, Any] | None) -> list[str]:
+    """The verdict as sentences a person reads."""
+    if gate is None:
+        return ["The gate has not run yet, so nothing has been decided."]
+    m = gate.get("primary_metric", "the primary metric")
+    lines = [
+        (
+            "The tuned model passed the release gate: it may be exported and indexed."
+            if gate["passed"]
+            else "The tuned model did NOT pass the release gate: it is not released "
+            "(`ballast export --force` overrides this, and the manifest records it)."
+        ),
+        f"Rule: on every gated split the tuned model must gain on {m} by at least "
+        f"{gate.get('min_gain', 0):+.4f}, with the whole interval of the gain above zero "
+        f"and the randomization test significant after Holm correction.",
+    ]
+    for s in gate.get("splits", []):
+        verdict = "passed" if s.get("passed") else "failed"
+        lines.append(f"Split {s['split']} {verdict}: {s.get('reason', '')}")
+    return lines
+
+
+def _flatten(prefix: str, obj: Any) -> list[tuple[str, str]]:
+    """Nested summary dicts as ("a.b", "value") rows, keys sorted."""
+    if isinstance(obj, dict):
+        rows = []
+        for k in sorted(obj):
+            sub = f"{prefix}{k}." if isinstance(obj[k], dict) else f"{prefix}{k}"
+            rows += _flatten(sub, obj[k])
+        return rows
+    if isinstance(obj, list):
+        return [(prefix, ", ".join(str(x) for x in obj) or "none")]
+    return [(prefix, "none" if obj is None else str(obj))]
+
+
+def _counts(inp: ReportInputs) -> list[tuple[str, list[tuple[str, str]]]]:
+    """Synthesis, filtering and mining counts, flattened from the stages' summaries."""
+    out = []
+    for stage in ("ingest", "synth", "split", "mine", "train"):
+        summary = inp.stages.get(stage)
+        if summary:
+            rows = _flatten("", {k: v for k, v in summary.items() if k != "loss_history"})
+            out.append((stage, rows))
+    return out
+
+
+@dataclass(frozen=True)
+class Example:
+    query_id: str
+    text: str
+    origin: str
+    diff: float
+    base_value: float
+    tuned_value: float
+    relevant: list[str]
+    top: dict[str, list[tuple[int, str, float, bool]]]  # model -> (rank, pid, score, relevant)
+
+
+def _examples(inp: ReportInputs, split: str, metric: str) -> tuple[list[Example], list[Example]]:
+    diffs = _diffs(inp, split, metric)
+    base = _per_query_values(inp, split, BASE, metric)
+    tuned = _per_query_values(inp, split, TUNED, metric)
+    rels = inp.qrels.get(split, {})
+
+    def make(q: str, d: float) -> Example:
+        qrow = inp.queries.get(q, {})
+        relevant = sorted(p for p, g in rels.get(q, {}).items() if g > 0)
+        top = {}
+        for model in (BASE, TUNED):
+            ranking = inp.runs.get(model, {}).get(split, {}).get(q, [])
+            top[model] = [
+                (i + 1, pid, s, pid in relevant)
+                for i, (pid, s) in enumerate(ranking[:TOP_PASSAGES])
+            ]
+        return Example(
+            q,
+            str(qrow.get("text", "(query text not found)")),
+            str(qrow.get("origin", "")),
+            d,
+            base.get(q, 0.0),
+            tuned.get(q, 0.0),
+            relevant,
+            top,
+        )
+
+    losses = [make(q, d) for q, d in diffs if d < 0][:EXAMPLES]
+    wins = [make(q, d) for q, d in reversed(diffs) if d > 0][:EXAMPLES]
+    return losses, wins
+
+
+def _passage_text(inp: ReportInputs, pid: str) -> str:
+    p = inp.passages.get(pid)
+    if p is None:
+        return "(passage text not found)"
+    text = " ".join(str(p.get("text", "")).split())
+    return text if len(text) <= SNIPPET else text[: SNIPPET - 1].rstrip() + "…"
+
+
+def _max_k(inp: ReportInputs) -> int:
+    ks = [len(r) for m in inp.runs.values() for s in m.values() for r in s.values()]
+    return max(ks) if ks else 0
+
+
+def _curves(inp: ReportInputs, split: str) -> dict[str, dict[str, list[float]]] | None:
+    qrels = inp.qrels.get(split)
+    max_k = _max_k(inp)
+    if not qrels or max_k == 0:
+        return None
+    out = {}
+    for model in (BASE, TUNED):
+        ranking = inp.runs.get(model, {}).get(split)
+        if ranking is None:
+            return None
+        qids = sorted(q for q in ranking if q in qrels)
+        out[model] = k_curves(ranking, qrels, qids, max_k)
+    return out
+
+
+def _num(x: Any, fmt: str = ".4f") -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "–"
+    return format(x, fmt)
+
+
+def summary_facts(inp: ReportInputs) -> dict[str, Any]:
+    """A few numbers for the stage summary (what `ballast report --json` prints)."""
+    primary = _primary(inp)
+    out: dict[str, Any] = {"primary_metric": primary, "better_worse_tied": {}}
+    for s in _split_names(inp):
+        d = [x for _, x in _diffs(inp, s, primary)]
+        out["better_worse_tied"][s] = (
+            f"{sum(x > 0 for x in d)}/{sum(x < 0 for x in d)}/{sum(x == 0 for x in d)}"
+        )
+    out["gate_passed"] = None if inp.gate is None else bool(inp.gate.get("passed"))
+    return out
