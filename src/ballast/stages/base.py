@@ -56,6 +56,14 @@ class Run:
 
         return model_fingerprint(self.base_path)
 
+    def base_encoder(self) -> Any:
+        """The base model as every stage encodes with it: at ``train.max_seq_length`` tokens,
+        so synth's round trip, mine, the adapter and evaluate share one setting and one
+        embedding cache entry per text list."""
+        from ballast.models.loading import load_encoder
+
+        return load_encoder(self.base_path, max_seq_length=self.cfg.train.max_seq_length)
+
     def need(self, name: str, made_by: str) -> Path:
         p = self.path(name)
         if not p.exists():
@@ -106,3 +114,12 @@ def file_fingerprint(path: str | Path | None) -> str:
         return "unset"
     p = Path(path)
     return fingerprint_tree(p) if p.exists() else "missing"
+
+
+def guard_files(run: Run) -> dict[str, str]:
+    """Fingerprints of the guard split's files (queries, qrels, passages) when a guard is set:
+    evaluate and report read them."""
+    g = run.cfg.guard
+    if not g.enabled:
+        return {}
+    return {f"guard.{k}": file_fingerprint(getattr(g, k)) for k in ("queries", "qrels", "passages")}

@@ -10,7 +10,7 @@ from typing import Any
 from ballast.config import Config
 from ballast.core.progress import SILENT, Progress
 from ballast.io.files import atomic_dir, read_jsonl, write_json, write_text_atomic
-from ballast.stages.base import Run, Stage, file_fingerprint
+from ballast.stages.base import Run, Stage, guard_files
 from ballast.stages.evaluate.compute import Corpus, EvalSet
 
 
@@ -198,14 +198,6 @@ def evaluate_files(
     summary["queries_without_judgements"] = unjudged
     write_evaluation(out, summary, per_query_rows(per_query, sets, metrics), run_files)
     return summary
-
-
-def guard_files(run: Run) -> dict[str, str]:
-    """The guard split's files, when the stage reads them."""
-    g = run.cfg.guard
-    if not g.enabled:
-        return {}
-    return {f"guard.{k}": file_fingerprint(getattr(g, k)) for k in ("queries", "qrels", "passages")}
 
 
 STAGE = Stage(

@@ -51,7 +51,6 @@ def mine(run: Run) -> dict[str, Any]:
     from ballast.core.search import search
     from ballast.core.text import collapse
     from ballast.models.encode import encode
-    from ballast.models.loading import load_encoder
 
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     train_docs = set(splits["documents"]["train"])
@@ -59,7 +58,7 @@ def mine(run: Run) -> dict[str, Any]:
     by_pid = {p["id"]: p for p in passages}
     qs = [q for q in queries if q["id"] in train_q]
     cfg = run.cfg.mine
-    model = load_encoder(run.base_path, max_seq_length=run.cfg.train.max_seq_length)
+    model = run.base_encoder()
     all_emb = _base_corpus_embeddings(run, model, passages)
     tidx = [i for i, p in enumerate(passages) if p["doc_id"] in train_docs]
     tp = [passages[i] for i in tidx]

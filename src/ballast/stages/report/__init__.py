@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from ballast.io.files import read_jsonl, read_text, write_text_atomic
-from ballast.stages.base import Run, Stage, file_fingerprint
+from ballast.stages.base import Run, Stage, guard_files
 
 SUMMARY_STAGES = ("ingest", "synth", "split", "mine", "train")
 
@@ -108,13 +108,6 @@ def report(run: Run) -> dict[str, Any]:
     return {"html": str(html_path), "markdown": str(md_path), **summary_facts(inp)}
 
 
-def _guard_files(run: Run) -> dict[str, str]:
-    g = run.cfg.guard
-    if not g.enabled:
-        return {}
-    return {f"guard.{k}": file_fingerprint(getattr(g, k)) for k in ("queries", "qrels", "passages")}
-
-
 STAGE = Stage(
     "report",
     report,
@@ -131,5 +124,5 @@ STAGE = Stage(
         *(f"{s}.done.json" for s in SUMMARY_STAGES),
     ),
     outputs=("report.html", "report.md"),
-    external=_guard_files,
+    external=guard_files,
 )

@@ -54,12 +54,11 @@ def _round_trip(run: Run, queries: list[dict], passages: list[dict]) -> tuple[li
     each generated query; a query whose passage is not in the top k is dropped."""
     from ballast.core.search import top_k
     from ballast.models.encode import encode_cached
-    from ballast.models.loading import load_encoder
     from ballast.stages.synth.filters import round_trip_filter
 
     if not queries or not passages:
         return queries, []
-    model = load_encoder(run.base_path)
+    model = run.base_encoder()
     cache, bs = run.cache(), run.cfg.evaluate.batch_size
     ids = [p["id"] for p in passages]
     p_emb = encode_cached(

@@ -139,7 +139,6 @@ def train_frozen_adapter(
     import numpy as np
 
     from ballast.models.encode import encode_cached
-    from ballast.models.loading import load_encoder
     from ballast.models.query_map import (
         ADAPTER_FILE,
         append_dense,
@@ -153,7 +152,7 @@ def train_frozen_adapter(
         import torch
 
         torch.set_num_threads(cfg.threads)
-    model = load_encoder(run.base_path, max_seq_length=cfg.max_seq_length)
+    model = run.base_encoder()
 
     def enc(texts: list[str], label: str) -> np.ndarray:
         return encode_cached(
