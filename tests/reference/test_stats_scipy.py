@@ -106,3 +106,21 @@ def test_effect_size_matches_ttest_rel(seed: int) -> None:
     res = compare(a, b, rng=np.random.default_rng(seed), n_resamples=200)
     # scipy.stats.ttest_rel(b, a): t = mean(b - a) / (std(b - a, ddof=1) / sqrt(n)) = d_z * sqrt(n)
     assert res.effect_size * np.sqrt(res.n) == approx(sps.ttest_rel(b, a).statistic, rel=1e-12)
+
+
+def test_minimum_detectable_effect_matches_statsmodels_power() -> None:
+    """core.stats.min_detectable_effect against statsmodels' normal power solver: a one-sample
+    (paired) two-sided z-test, standardised effect times the standard deviation."""
+    from statsmodels.stats.power import NormalIndPower
+
+    from ballast.core.stats import min_detectable_effect
+
+    for sd, n, alpha in ((0.2, 30, 0.05), (0.35, 112, 0.05), (0.1, 500, 0.01)):
+        es = NormalIndPower().solve_power(
+            effect_size=None, nobs1=n, alpha=alpha, power=0.8, ratio=0, alternative="two-sided"
+        )
+        # statsmodels counts the (negligible) far tail too; the normal approximation drops it
+        assert min_detectable_effect(sd, n, alpha=alpha, power=0.8) == pytest.approx(
+            es * sd, rel=1e-5
+        )
+    assert min_detectable_effect(0.2, 1) == float("inf")

@@ -116,7 +116,7 @@ def test_unknown_top_level_key_and_section() -> None:
         ({"evaluate": {"metrics": ["bleu@10"]}}, "evaluate.metrics", "recall, precision"),
         ({"split": {"test_fraction": 0.0}}, "split.test_fraction", "(0.0, 0.9]"),
         ({"synth": {"generators": ["gpt"]}}, "synth.generators", "'ict', 'keywords'"),
-        ({"gate": {"splits": ["dev"]}}, "gate.splits", "dev is never gated"),
+        ({"gate": {"splits": ["dev"]}}, "gate.splits", "are never gated"),
         ({"train": {"epochs": "two"}}, "train.epochs", "an integer"),
         ({"train": {"epochs": True}}, "train.epochs", "an integer"),
         ({"train": 5}, "train", "a table [train]"),

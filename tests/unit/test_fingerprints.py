@@ -35,14 +35,17 @@ KEY = {
     "name": {"report", "export"},
     "seed": {"synth", "split", "mine", "train", "evaluate", "export"},
     "run_dir": set(),  # where the run lives, not what it computes
-    "base_model": {"ingest", "mine", "train", "evaluate", "export"},
+    "base_model": {"ingest", "check", "mine", "train", "evaluate", "export"},
     "mine.negatives": {"mine", "train", "export"},
-    "train.max_seq_length": {"synth", "mine", "train", "evaluate", "export"},
+    "train.max_seq_length": {"synth", "check", "mine", "train", "evaluate", "export"},
     "train.matryoshka_dims": {"train", "evaluate", "export"},
-    "evaluate.batch_size": {"synth", "mine", "train", "evaluate", "export"},
+    "evaluate.batch_size": {"synth", "check", "mine", "train", "evaluate", "export"},
     "evaluate.encode_devices": {"mine", "evaluate"},
-    "gate.primary_metric": {"train", "gate", "export"},  # train keeps the best dev checkpoint by it
-    "gate.splits": {"gate", "export"},  # export measures int8 on a gated split
+    # train keeps the best dev checkpoint by it; check estimates the detectable gain in it
+    "gate.primary_metric": {"check", "train", "gate", "export"},
+    "gate.splits": {"check", "train", "gate", "export"},  # export measures int8 on a gated split
+    "gate.min_queries": {"check", "train", "gate"},  # the pre-flight count check
+    "gate.alpha": {"check", "gate"},  # the detectable gain is computed at the gate's level
 }
 
 
@@ -104,7 +107,7 @@ def test_the_two_gaps_of_the_hand_kept_list_are_closed() -> None:
     # train picks its best dev checkpoint by the gate's metric: changing it retrains and
     # everything after; the guard's settings reach evaluate (and the report)
     assert downstream(changed_stages("gate.primary_metric")) == {
-        "train", "evaluate", "gate", "report", "export"
+        "check", "train", "evaluate", "gate", "report", "export"
     }
     assert downstream(changed_stages("guard.qrels")) == {"evaluate", "gate", "report", "export"}
     assert downstream(changed_stages("split.dev_fraction")) == set(ORDER) - {"ingest", "synth"}
@@ -180,7 +183,7 @@ def test_a_real_run_reruns_only_what_a_change_touches(tmp_path: Path) -> None:
 
     def ran(*sets: str) -> list[str]:
         run = Run(load_config(cfg_file, list(sets)))
-        return [r["stage"] for r in pipeline.run_all(run, stop_before="mine") if not r["skipped"]]
+        return [r["stage"] for r in pipeline.run_all(run, stop_before="check") if not r["skipped"]]
 
     assert ran() == ["ingest", "synth", "split"]
     assert ran() == []

@@ -81,3 +81,35 @@ def test_better_on_test_worse_on_human_fails_and_says_so() -> None:
     assert test["passed"] is True and human["passed"] is False
     assert "human" in out["summary"] and "test" not in out["summary"].split("split(s)")[1]
     assert "fell by" in human["reason"]
+
+
+REAL = GateConfig(splits=("human", "human_heldout"), primary_metric="ndcg@10", min_gain=0.0)
+
+
+def test_heldout_real_questions_that_get_worse_fail_the_gate() -> None:
+    """A model that gains on questions about its training documents but loses on questions
+    about documents it never saw must not ship (non-inferiority on human_heldout)."""
+    out = decide(summary({"human": (BASE, BETTER), "human_heldout": (BASE, WORSE)}), REAL)
+    assert out["passed"] is False and out["evidence"] == "real"
+    human, heldout = out["splits"]
+    assert human["passed"] and human["rule"] == "superiority"
+    assert not heldout["passed"] and heldout["rule"] == "non-inferiority"
+    assert heldout["ci_low"] < -REAL.heldout_tolerance and "reaches below" in heldout["reason"]
+    assert "human_heldout" in out["summary"]
+
+
+def test_heldout_that_holds_passes_on_real_evidence() -> None:
+    out = decide(summary({"human": (BASE, BETTER), "human_heldout": (BASE, BASE)}), REAL)
+    assert out["passed"] is True and out["evidence"] == "real"
+    assert out["summary"].startswith("PASS on real questions")
+    assert "does not lose on human_heldout" in out["summary"]
+    heldout = out["splits"][1]
+    assert heldout["p_holm"] is None  # no Holm correction for a non-inferiority split
+
+
+def test_a_synthetic_pass_is_never_a_plain_pass() -> None:
+    cfg = GateConfig(splits=("test",), primary_metric="ndcg@10", min_gain=0.0)
+    out = decide(summary({"test": (BASE, BETTER)}), cfg)
+    assert out["passed"] is True and out["evidence"] == "synthetic"
+    assert out["summary"].startswith("PASS ON SYNTHETIC QUERIES ONLY")
+    assert "no real question checked it" in out["summary"]

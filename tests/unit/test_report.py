@@ -82,7 +82,7 @@ def test_report_shows_what_the_issue_asks_for(tmp_path: Path) -> None:
                  "Training loss", "95% interval", "too_short", "dropped_by_rule.positive"):
         assert part in html, part
     assert html.count("<svg") >= 2 + 2 + 2 + 1  # bars+forest, 2 curves, 2 diff strips, loss
-    assert "passed the release gate" in html
+    assert "passed on synthetic queries only" in html and "Evidence: synthetic" in html
     # the same inputs give the same bytes
     assert render_html(inp) == html and render_markdown(inp) == render_markdown(inp)
 

@@ -101,20 +101,28 @@ DOC_SPLIT = {"a": "train", "b": "test", "c": "dev"}
 
 
 def test_assign_queries() -> None:
+    """Real questions follow the documents that answer them (common practice: split by
+    document so that no document's text is on both sides)."""
     queries = [
         {"id": "q3", "passage_id": "p1", "origin": "ict"},
         {"id": "q1", "passage_id": "p1", "origin": "keywords"},
         {"id": "q2", "passage_id": "p2", "origin": "ict"},
         {"id": "q4", "passage_id": "p3", "origin": "ict"},
-        {"id": "h1", "passage_id": "p1", "origin": "human"},  # human, though on a train document
-        {"id": "h0", "passage_id": "p2", "origin": "human"},
+        {"id": "h1", "passage_id": "p1", "origin": "human"},  # answered in a training document
+        {"id": "h0", "passage_id": "p2", "origin": "human"},  # in a held-out (test) document
+        {"id": "h2", "passage_id": "p3", "origin": "human"},  # in a dev document
+        # answered in a dev and a test document: dev (never gated) wins over held-out
+        {"id": "h3", "passage_id": "p2", "origin": "human", "meta": {"relevant": ["p2", "p3"]}},
+        # answered in a test and a training document: the model saw one answer's text
+        {"id": "h4", "passage_id": "p2", "origin": "human", "meta": {"relevant": ["p2", "p1"]}},
     ]
     assert assign_queries(queries, PASSAGES, DOC_SPLIT) == {
         "train": ["q1", "q3"],
         "dev": ["q4"],
         "test": ["q2"],
-        "human": ["h0", "h1"],
-        "human_heldout": ["h0"],  # its answer is in a held-out document
+        "human": ["h1", "h4"],
+        "human_dev": ["h2", "h3"],
+        "human_heldout": ["h0"],
     }
 
 

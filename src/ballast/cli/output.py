@@ -99,6 +99,16 @@ def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
 
 def gate_text(verdict: dict[str, Any]) -> str:
     lines = [f"gate: {verdict['summary']}"]
+    evidence = verdict.get("evidence", "synthetic")
+    lines.append(
+        "  evidence: real questions"
+        if evidence == "real"
+        else "  evidence: synthetic queries only (from the training's own generators)"
+    )
     for s in verdict["splits"]:
-        lines.append(f"  {'pass' if s['passed'] else 'FAIL'}  {s['split']}: {s['reason']}")
+        rule = s.get("rule", "superiority")
+        lines.append(
+            f"  {'pass' if s['passed'] else 'FAIL'}  {s['split']} "
+            f"({'must gain' if rule == 'superiority' else 'must not lose'}): {s['reason']}"
+        )
     return "\n".join(lines)

@@ -30,8 +30,8 @@ keywords_min_terms = 2
 keywords_max_terms = 4
 max_passages = 0           # budget: generate from at most this many passages, a seeded
                            # sample (0 = all); a slow local model writes ~1 query/s on 2 cores
-questions = ""             # a JSONL of real questions: {"id","text","doc_id","quote"};
-                           # set it, and add "human" to evaluate.splits and gate.splits
+questions = ""             # a JSONL of real questions: {"id","text","doc_id","quote"}; with
+                           # it the gate judges real questions (see [gate])
 # Model-written queries ("llm" and "http"); the llm_* generation settings serve both.
 prompts = ""               # folder of few-shot prompts, one <style>.toml a style
                            # ("" = the defaults shipped with ballast; `ballast init`
@@ -118,25 +118,30 @@ bf16 = "auto"              # bfloat16 autocast: true, false, or "auto": on where
                            # native (AVX-512 BF16 / AMX CPUs, GPUs), off where it is emulated
 
 [evaluate]
-splits = ["dev", "test"]   # add "human" when synth.questions is set
+splits = []               # [] = every split there is: dev, test; with synth.questions also
+                           # human, human_dev, human_heldout; guard when set below
 metrics = ["ndcg@10", "mrr@10", "recall@10", "precision@10", "map@10", "hit_rate@10"]
 bootstrap_resamples = 10000
 confidence = 0.95
 batch_size = 64
 encode_devices = []        # e.g. ["cuda:0", "cuda:1"]: encode passages (mine, evaluate) in one
                            # process per device; [] = in this process
+references = ["bm25", "hybrid"]  # lexical reference rows (never gated): BM25, and each model
+                           # fused with BM25 by reciprocal rank fusion (NAME+bm25)
 
-[guard]                    # optional general-domain set, to catch forgetting; then add
-queries = ""               # "guard" to evaluate.splits and gate.splits. Queries and passages:
+[guard]                    # optional general-domain set, to catch forgetting (evaluated and
+queries = ""               # gated by default once set). Queries and passages:
 qrels = ""                 # JSONL {"id","text"} or TSV id<TAB>text; qrels: TREC format
 passages = ""
 
 [gate]
-splits = ["test"]          # the tuned model must win on every one ("human" too, with questions)
+splits = []               # [] = with synth.questions: human (must gain) and human_heldout (must
+                           # not lose); without: test (synthetic, a weaker judge); + guard if set
 primary_metric = "ndcg@10"
 min_gain = 0.0             # required mean gain; the interval must also lie above zero
 alpha = 0.05               # randomization test level, Holm-corrected across gated splits
 guard_tolerance = 0.01     # the guard split may lose at most this much (non-inferiority)
+heldout_tolerance = 0.01   # human_heldout may lose at most this much (non-inferiority)
 min_queries = 30           # a gated split with fewer queries cannot decide and fails
 
 [export]

@@ -20,6 +20,7 @@ from ballast.config.sections import (
     EVAL_SPLITS,
     GATE_SPLITS,
     PACKAGED_BASE,
+    SUPERIORITY_SPLITS,
     EvaluateConfig,
     ExportConfig,
     GateConfig,
@@ -55,6 +56,7 @@ class Config:
         if not self.name or not all(c.isalnum() or c in "._-" for c in self.name):
             _fail("name", self.name, "a non-empty name of letters, digits, '.', '_' or '-'")
         _range("seed", self.seed, 0, 2**32 - 1)
+        self._resolve_auto_splits()
         for s in self.gate.splits:
             if s not in self.evaluate.splits:
                 _fail(
@@ -75,6 +77,20 @@ class Config:
                 human[0],
                 "synth.questions set to a questions file when the 'human' split is evaluated",
             )
+
+    def _resolve_auto_splits(self) -> None:
+        """evaluate.splits = [] and gate.splits = [] mean "what the evidence allows": with
+        real questions, the gate judges them on both sides (human must gain, human_heldout must
+        not lose) and the synthetic test split is only reported."""
+        real = ("human", "human_dev", "human_heldout") if self.synth.questions else ()
+        guard = ("guard",) if self.guard.enabled else ()
+        if not self.evaluate.splits:
+            ev = dataclasses.replace(self.evaluate, splits=("dev", "test", *real, *guard))
+            object.__setattr__(self, "evaluate", ev)
+        if not self.gate.splits:
+            judged = ("human", "human_heldout") if real else ("test",)
+            gate = dataclasses.replace(self.gate, splits=(*judged, *guard))
+            object.__setattr__(self, "gate", gate)
 
     def to_dict(self) -> dict[str, Any]:
         return _to_plain(dataclasses.asdict(self))
@@ -262,6 +278,7 @@ def build_config(
 __all__ = [
     "EVAL_SPLITS",
     "GATE_SPLITS",
+    "SUPERIORITY_SPLITS",
     "PACKAGED_BASE",
     "Config",
     "EvaluateConfig",

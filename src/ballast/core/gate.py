@@ -4,19 +4,82 @@ On every gated superiority split (``test``, ``human``) the tuned model must beat
 the primary metric by at least ``min_gain``, the paired bootstrap interval of the difference
 must lie above zero, and the paired randomization test must reject "no difference" at
 ``alpha`` after Holm-Bonferroni correction across those splits (Smucker, Allan & Carterette,
-CIKM 2007; Holm 1979). On the ``guard`` split (general-domain queries) the tuned model must be
-non-inferior: the lower end of the interval above ``-guard_tolerance``. A split with fewer than
-``min_queries`` queries cannot decide anything and fails.
+CIKM 2007; Holm 1979). On the non-inferiority splits the tuned model must not lose: the lower
+end of the interval above ``-heldout_tolerance`` (``human_heldout``: real questions about
+documents the model never saw) or ``-guard_tolerance`` (``guard``: the user's general-domain
+set). A split with fewer than ``min_queries`` queries cannot decide anything and fails.
+
+Every verdict says what it rests on (``evidence``): real questions (a gated ``human`` or
+``human_heldout`` split), or synthetic queries only, which come from the generators the
+training itself used and so are no independent judge: such a pass is never a plain pass.
 """
 
 from __future__ import annotations
 
+import math
 from typing import TYPE_CHECKING, Any
 
 from ballast.core.stats import holm
 
 if TYPE_CHECKING:  # the section's type only: core imports nothing above it
     from ballast.config import GateConfig
+
+
+SUPERIORITY = ("test", "human")
+# split -> (its config key of the allowed loss, what it holds)
+NON_INFERIORITY = {"human_heldout": "heldout_tolerance", "guard": "guard_tolerance"}
+REAL = ("human", "human_heldout")
+SPLIT_MEANING = {
+    "train": "synthetic queries the model trained on (never gated)",
+    "dev": "synthetic queries on dev documents: where settings are chosen (never gated)",
+    "test": "synthetic queries on held-out documents, from the generators the training used",
+    "human": "real questions about documents the model trained on (never on the questions)",
+    "human_dev": "real questions about dev documents: where settings are chosen (never gated)",
+    "human_heldout": "real questions about documents the model never saw",
+    "guard": "your general-domain set: the tuned model must not get worse there",
+}
+
+
+def rule_of(split: str) -> str:
+    return "non-inferiority" if split in NON_INFERIORITY else "superiority"
+
+
+def evidence_of(splits: list[str] | tuple[str, ...]) -> str:
+    """``real`` when a gated split holds real questions, else ``synthetic``."""
+    return "real" if any(s in REAL for s in splits) else "synthetic"
+
+
+WHERE_TO_ADD = {
+    "human": "real questions whose answers lie in training documents",
+    "human_heldout": "real questions whose answers lie only in held-out (test) documents",
+    "test": "held-out documents (the test split takes split.test_fraction of them)",
+}
+
+
+def count_problems(
+    counts: dict[str, int], cfg: GateConfig, test_docs: int = 0
+) -> list[str]:
+    """What stops the gate before any training: a gated split with fewer than
+    ``gate.min_queries`` queries can only fail, so ``ballast run`` says so at once. ``counts``:
+    queries per split; ``test_docs``: documents in the test split, to say how many more a
+    synthetic test split would need (guard, the user's own set, is not counted here)."""
+    out = []
+    for split in cfg.splits:
+        if split == "guard":
+            continue
+        n = counts.get(split, 0)
+        if n >= cfg.min_queries:
+            continue
+        short = cfg.min_queries - n
+        if split == "test" and n and test_docs:
+            need = f"about {math.ceil(short / (n / test_docs))} more documents in the test split"
+        else:
+            need = f"{short} more {WHERE_TO_ADD.get(split, 'queries')}"
+        out.append(
+            f"split {split} has {n} queries; the gate needs at least {cfg.min_queries} "
+            f"(gate.min_queries), so it could only fail: add {need}"
+        )
+    return out
 
 
 def _pct(confidence: float) -> str:
@@ -39,12 +102,13 @@ def _judge(split: str, c: dict[str, Any], cfg: GateConfig, p_holm: float | None)
             f"{c['n']} queries are too few to decide: the gate needs at least "
             f"{cfg.min_queries} (gate.min_queries)"
         )
-    elif split == "guard":
-        passed = lo > -cfg.guard_tolerance
+    elif split in NON_INFERIORITY:
+        tolerance = getattr(cfg, NON_INFERIORITY[split])
+        passed = lo > -tolerance
         why.append(
             f"the {pct} interval [{lo:+.4f}, {hi:+.4f}] "
             f"{'stays above' if passed else 'reaches below'} the allowed loss "
-            f"-{cfg.guard_tolerance:.4f} (non-inferiority)"
+            f"-{tolerance:.4f} (non-inferiority, gate.{NON_INFERIORITY[split]})"
         )
     else:
         enough, above = gain >= cfg.min_gain, lo > 0
@@ -63,7 +127,8 @@ def _judge(split: str, c: dict[str, Any], cfg: GateConfig, p_holm: float | None)
     return {
         "split": split,
         "passed": bool(passed),
-        "rule": "non-inferiority" if split == "guard" else "superiority",
+        "rule": rule_of(split),
+        "holds": SPLIT_MEANING.get(split, split),
         "metric": m,
         "gain": gain,
         "ci_low": lo,
@@ -101,7 +166,7 @@ def decide(
             }
         else:
             found[split] = info["comparisons"][key][cfg.primary_metric]
-    superiority = [s for s in found if s != "guard"]
+    superiority = [s for s in found if s not in NON_INFERIORITY]
     adjusted = (
         dict(
             zip(superiority, holm([found[s]["p_value"] for s in superiority]).tolist(), strict=True)
@@ -114,20 +179,35 @@ def decide(
     splits = [results[s] for s in cfg.splits]
     passed = all(s["passed"] for s in splits)
     failed = [s["split"] for s in splits if not s["passed"]]
-    summary = (
-        f"PASS: the {candidate} model beats the {baseline} model on every gated split "
-        f"({', '.join(cfg.splits)})"
-        if passed
-        else f"FAIL: no gain that holds on split(s) {', '.join(failed)}; the {candidate} "
-        "model is not released"
-    )
+    evidence = evidence_of(cfg.splits)
+    if not passed:
+        summary = (
+            f"FAIL: no gain that holds on split(s) {', '.join(failed)}; the {candidate} "
+            "model is not released"
+        )
+    else:
+        gains = [s for s in cfg.splits if s not in NON_INFERIORITY]
+        holds = [s for s in cfg.splits if s in NON_INFERIORITY]
+        what = f"the {candidate} model beats the {baseline} model on {', '.join(gains)}" + (
+            f" and does not lose on {', '.join(holds)}" if holds else ""
+        )
+        if evidence == "real":
+            summary = f"PASS on real questions: {what}"
+        else:
+            summary = (
+                f"PASS ON SYNTHETIC QUERIES ONLY: {what}, but no real question checked it; "
+                "these queries come from the generators the training used, so they are no "
+                "independent judge. Add real questions (synth.questions) before trusting it"
+            )
     return {
         "passed": passed,
+        "evidence": evidence,
         "summary": summary,
         "primary_metric": cfg.primary_metric,
         "min_gain": cfg.min_gain,
         "alpha": cfg.alpha,
         "guard_tolerance": cfg.guard_tolerance,
+        "heldout_tolerance": cfg.heldout_tolerance,
         "min_queries": cfg.min_queries,
         "correction": "holm",
         "splits": splits,

@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ballast.core.errors import InputError
+from ballast.core.records import relevant_ids
 from ballast.core.text import sha256_bytes
 
 if TYPE_CHECKING:  # the section's type only: core imports nothing above it
@@ -57,19 +58,24 @@ def assign_documents(
     return dict(sorted(out.items()))
 
 
+# Real questions are split by the documents that answer them, like everything else.
+HUMAN_SPLITS = {"train": "human", "dev": "human_dev", "test": "human_heldout"}
+
+
 def assign_queries(
     queries: list[dict], passages: dict[str, dict], doc_split: dict[str, str]
 ) -> dict[str, list[str]]:
-    """Split name -> query ids. Human questions form 'human'; those whose answers all lie in
-    held-out documents also form 'human_heldout' (real questions about documents the model
-    never trained on). Generated queries follow their document."""
-    out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, "human", "human_heldout")}
+    """Split name -> query ids. Generated queries follow their document. Real questions
+    (origin ``human``) follow the documents of their answers: ``human`` when one lies in a
+    training document (the model trained on that text, never on the question),
+    ``human_dev`` when one lies in a dev document (never gated: where settings may be chosen),
+    else ``human_heldout`` (documents the model never saw)."""
+    out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, *HUMAN_SPLITS.values())}
     for q in queries:
         if q["origin"] == "human":
-            out["human"].append(q["id"])
-            relevant = q.get("meta", {}).get("relevant") or [q["passage_id"]]
-            if all(doc_split[passages[r]["doc_id"]] != "train" for r in relevant):
-                out["human_heldout"].append(q["id"])
+            where = {doc_split[passages[r]["doc_id"]] for r in relevant_ids(q)}
+            first = next(s for s in DOC_SPLITS if s in where)
+            out[HUMAN_SPLITS[first]].append(q["id"])
         else:
             out[doc_split[passages[q["passage_id"]]["doc_id"]]].append(q["id"])
     return {s: sorted(ids) for s, ids in out.items()}

@@ -168,3 +168,16 @@ def compare(
         losses=int(np.count_nonzero(diff < 0)),
         ties=int(np.count_nonzero(diff == 0)),
     )
+
+
+def min_detectable_effect(sd: float, n: int, *, alpha: float = 0.05, power: float = 0.8) -> float:
+    """The smallest mean paired difference a two-sided test at ``alpha`` detects with
+    ``power``, for ``n`` queries whose per-query differences have standard deviation ``sd``:
+    ``(z_{1-alpha/2} + z_power) * sd / sqrt(n)`` (the normal approximation; common practice
+    for sizing a paired comparison). ``inf`` for fewer than two queries."""
+    from statistics import NormalDist
+
+    if n < 2:
+        return math.inf
+    z = NormalDist().inv_cdf
+    return (z(1 - alpha / 2) + z(power)) * float(sd) / math.sqrt(n)

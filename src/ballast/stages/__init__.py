@@ -7,6 +7,7 @@ A stage reads what earlier stages wrote into the run folder and writes its outpu
 
 from __future__ import annotations
 
+from ballast.stages import check as _check
 from ballast.stages import evaluate as _evaluate
 from ballast.stages import export as _export
 from ballast.stages import gate as _gate
@@ -24,6 +25,7 @@ STAGES: dict[str, Stage] = {
         _ingest.STAGE,
         _synth.STAGE,
         _split.STAGE,
+        _check.STAGE,
         _mine.STAGE,
         _train.STAGE,
         _evaluate.STAGE,

@@ -121,6 +121,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         max_seq_length=run.cfg.train.max_seq_length,
         dims=run.cfg.train.matryoshka_dims,
         devices=cfg.encode_devices,
+        references=cfg.references,
         progress=run.progress,
     )
     truncated = {  # Matryoshka: the same models at smaller sizes, named NAME@DIM
@@ -135,6 +136,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         seed=run.cfg.seed,
         resamples=cfg.bootstrap_resamples,
         confidence=cfg.confidence,
+        pairs=(("tuned", "bm25"),),
     )
     summary["skipped_splits"] = skipped
     write_evaluation(run.dir, summary, per_query_rows(per_query, sets, metrics), run_files)
@@ -182,6 +184,7 @@ def evaluate_files(
         cache=EmbeddingCache(out / "cache"),
         batch_size=ev.batch_size,
         max_seq_length=None,
+        references=ev.references,
         progress=progress,
     )
     baseline = next(iter(named))

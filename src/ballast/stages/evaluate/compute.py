@@ -48,20 +48,25 @@ def run_models(
     max_seq_length: int | None,
     dims: tuple[int, ...] = (),
     devices: tuple[str, ...] = (),
+    references: tuple[str, ...] = (),
     progress: Progress = SILENT,
 ) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
     """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``.
 
     Each of ``dims`` smaller than a model's embedding size adds a model ``NAME@DIM``: the same
     embeddings truncated to their first DIM dimensions (no second encoding). With two or more
-    ``devices``, corpora are encoded by one process per device."""
+    ``devices``, corpora are encoded by one process per device. ``references``: "bm25" adds
+    BM25 over the same corpus as model ``bm25``; "hybrid" adds, for each model, the reciprocal
+    rank fusion of its ranking with BM25's, as ``NAME+bm25`` (core/lexical.py)."""
     from ballast.models.encode import device_pool, encode_cached
     from ballast.models.loading import load_encoder
     from ballast.models.query_map import query_route
 
     k = depth(metrics)
+    fuse_depth = max(k, FUSE_DEPTH) if "hybrid" in references else k
     per_query: dict[str, dict[str, dict[str, np.ndarray]]] = {s.name: {} for s in sets}
     run_files: dict[str, str] = {}
+    deep: dict[tuple[str, str], list[list[str]]] = {}  # (set, model) -> ranking to fuse
     for name, (path, fp) in models.items():
         model = load_encoder(path, max_seq_length=max_seq_length)
         to_query = query_route(path)  # a query-side adapter maps queries only
@@ -98,14 +103,53 @@ def run_models(
                     truncate(q_emb, d) if d < full else q_emb,
                     truncate(p_emb[s.corpus], d) if d < full else p_emb[s.corpus],
                     corpora[s.corpus].ids,
-                    k,
+                    fuse_depth if d == full else k,
                 )
-                per_query[s.name][label] = compute(metrics, ranked, s.qrels)
-                run_files[f"{label}/{s.name}.run"] = format_run(
-                    s.qids, ranked, scores, f"ballast-{label}"
-                )
+                if d == full:
+                    deep[(s.name, name)] = ranked
+                    ranked, scores = [r[:k] for r in ranked], scores[:, :k]
+                _record(per_query, run_files, s, label, metrics, ranked, scores)
         del model
+    if references:
+        _references(per_query, run_files, deep, corpora, sets, list(models), metrics, k,
+                    references, progress)  # fmt: skip
     return per_query, run_files
+
+
+FUSE_DEPTH = 100  # each system's top 100 are fused (a common depth for rank fusion)
+
+
+def _record(
+    per_query: dict, run_files: dict, s: EvalSet, label: str, metrics: list[str],
+    ranked: list[list[str]], scores: Any,
+) -> None:  # fmt: skip
+    per_query[s.name][label] = compute(metrics, ranked, s.qrels)
+    run_files[f"{label}/{s.name}.run"] = format_run(s.qids, ranked, scores, f"ballast-{label}")
+
+
+def _references(
+    per_query: dict, run_files: dict, deep: dict, corpora: dict[str, Corpus],
+    sets: list[EvalSet], models: list[str], metrics: list[str], k: int,
+    references: tuple[str, ...], progress: Progress,
+) -> None:  # fmt: skip
+    """BM25 and the hybrids, on the same sets and corpora as the embedders."""
+    from ballast.core.lexical import BM25, bm25_rank, rrf
+
+    indexes: dict[str, BM25] = {}
+    for s in sets:
+        if s.corpus not in indexes:
+            progress.info(f"evaluate: indexing the {s.corpus} passages for BM25")
+            indexes[s.corpus] = BM25(corpora[s.corpus].texts)
+        ranked, scores = bm25_rank(
+            indexes[s.corpus], s.texts, corpora[s.corpus].ids, max(k, FUSE_DEPTH)
+        )
+        if "bm25" in references:
+            _record(per_query, run_files, s, "bm25", metrics, [r[:k] for r in ranked],
+                    [x[:k] for x in scores])  # fmt: skip
+        if "hybrid" in references:
+            for name in models:
+                fused, fscores = rrf([deep[(s.name, name)], ranked], k)
+                _record(per_query, run_files, s, f"{name}+bm25", metrics, fused, fscores)
 
 
 def summarise_split(
@@ -117,9 +161,11 @@ def summarise_split(
     seed: int,
     resamples: int,
     confidence: float,
+    pairs: tuple[tuple[str, str], ...] = (),
 ) -> dict[str, Any]:
     """Means per model (also per query origin), and paired comparisons of every other model
-    against ``baseline``: bootstrap interval, randomization p-value, effect size."""
+    against ``baseline``, and of each ``(model, other)`` of ``pairs``: bootstrap interval,
+    randomization p-value, effect size."""
     out: dict[str, Any] = {
         "n_queries": len(origins),
         "origins": {o: origins.count(o) for o in sorted(set(origins))},
@@ -138,21 +184,21 @@ def summarise_split(
         }
     if len(origins) < 2:
         return out
-    for model, values in per_query.items():
-        if model == baseline:
-            continue
+    wanted = [(m, baseline) for m in per_query if m != baseline]
+    wanted += [(a, b) for a, b in pairs if a in per_query and b in per_query]
+    for model, against in wanted:
         comp = {}
         for j, m in enumerate(metrics):
             rng = np.random.default_rng([seed, j])
             c = compare(
-                per_query[baseline][m],
-                values[m],
+                per_query[against][m],
+                per_query[model][m],
                 rng=rng,
                 n_resamples=resamples,
                 confidence=confidence,
             )
             comp[m] = c.to_dict()
-        out["comparisons"][f"{model}_vs_{baseline}"] = comp
+        out["comparisons"][f"{model}_vs_{against}"] = comp
     return out
 
 
@@ -166,6 +212,7 @@ def summarise(
     seed: int,
     resamples: int,
     confidence: float,
+    pairs: tuple[tuple[str, str], ...] = (),
 ) -> dict[str, Any]:
     summary: dict[str, Any] = {
         "metrics": metrics,
@@ -185,6 +232,7 @@ def summarise(
             seed=seed * 1000 + j,
             resamples=resamples,
             confidence=confidence,
+            pairs=pairs,
         )
     return summary
 

@@ -86,11 +86,15 @@ def export(run: Run) -> dict[str, Any]:
         "metrics": gated,
         "gate": {
             "passed": verdict["passed"],
+            "evidence": verdict.get("evidence", "synthetic"),
             "summary": verdict["summary"],
             "primary_metric": verdict["primary_metric"],
             "min_gain": verdict["min_gain"],
             "splits": [
-                {k: s.get(k) for k in ("split", "passed", "gain", "ci_low", "ci_high", "reason")}
+                {
+                    k: s.get(k)
+                    for k in ("split", "passed", "rule", "gain", "ci_low", "ci_high", "reason")
+                }
                 for s in verdict["splits"]
             ],
             "forced": bool(run.force_export and not verdict["passed"]),

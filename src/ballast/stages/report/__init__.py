@@ -91,6 +91,7 @@ def gather(run: Run) -> Any:
         passages=passages,
         stages=stages,
         train=_json(run.path("train.json")),
+        check=_json(run.path("check.json")),
         notes=tuple(notes),
     )
 
@@ -121,6 +122,7 @@ STAGE = Stage(
         "train.json",
         "queries.jsonl",
         "passages.jsonl",
+        "check.json",
         *(f"{s}.done.json" for s in SUMMARY_STAGES),
     ),
     outputs=("report.html", "report.md"),

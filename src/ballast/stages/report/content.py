@@ -45,6 +45,7 @@ class ReportInputs:
     passages: dict[str, dict[str, Any]]  # passage id -> {"text", "doc_id", "title"?}
     stages: dict[str, dict[str, Any]] = field(default_factory=dict)  # stage -> done summary
     train: dict[str, Any] | None = None  # train.json
+    check: dict[str, Any] | None = None  # check.json (the pre-flight)
     notes: tuple[str, ...] = ()
 
 
@@ -116,21 +117,100 @@ def _gate_words(gate: dict[str, Any] | None) -> list[str]:
     if gate is None:
         return ["The gate has not run yet, so nothing has been decided."]
     m = gate.get("primary_metric", "the primary metric")
-    lines = [
-        (
-            "The tuned model passed the release gate: it may be exported and indexed."
-            if gate["passed"]
-            else "The tuned model did NOT pass the release gate: it is not released "
+    real = gate.get("evidence") == "real"
+    if not gate["passed"]:
+        head = (
+            "The tuned model did NOT pass the release gate: it is not released "
             "(`ballast export --force` overrides this, and the manifest records it)."
+        )
+    elif real:
+        head = "The tuned model passed the release gate on real questions: it may be exported."
+    else:
+        head = (
+            "The tuned model passed on synthetic queries only: no real question checked it. "
+            "These queries come from the generators the training used, so they are no "
+            "independent judge; add real questions (synth.questions) before trusting it."
+        )
+    lines = [
+        head,
+        "Evidence: "
+        + (
+            "real questions (written by people, never trained on)."
+            if real
+            else "synthetic queries only."
         ),
-        f"Rule: on every gated split the tuned model must gain on {m} by at least "
-        f"{gate.get('min_gain', 0):+.4f}, with the whole interval of the gain above zero "
-        f"and the randomization test significant after Holm correction.",
+        f"Rules: on a 'must gain' split the tuned model must gain on {m} by at least "
+        f"{gate.get('min_gain', 0):+.4f}, with the whole interval of the gain above zero and the "
+        "randomization test significant after Holm correction; on a 'must not lose' split the "
+        "interval's lower end must stay above the allowed loss.",
     ]
     for s in gate.get("splits", []):
         verdict = "passed" if s.get("passed") else "failed"
         lines.append(f"Split {s['split']} {verdict}: {s.get('reason', '')}")
     return lines
+
+
+def split_line(split: str, gate: dict[str, Any] | None) -> str:
+    """One line: what a split holds and whether (and how) it is gated."""
+    from ballast.core.gate import SPLIT_MEANING
+
+    gated = {s["split"]: s.get("rule") for s in (gate or {}).get("splits", [])}
+    rule = gated.get(split)
+    how = (
+        "gated: must gain"
+        if rule == "superiority"
+        else "gated: must not lose"
+        if rule == "non-inferiority"
+        else "not gated"
+    )
+    return f"{SPLIT_MEANING.get(split, split)} ({how})."
+
+
+REFERENCES = ("bm25", "base+bm25", "tuned+bm25")
+
+
+def reference_notes(metrics: dict[str, Any], primary: str) -> list[str]:
+    """Where the lexical reference beats the tuned model, said plainly (for jargon and codes a
+    retrieval engineer needs to know; never gated)."""
+    out = []
+    for split, info in metrics.get("splits", {}).items():
+        models = info.get("models", {})
+        tuned = models.get(TUNED, {}).get(primary, {}).get("mean")
+        if tuned is None:
+            continue
+        for ref in REFERENCES:
+            mean = models.get(ref, {}).get(primary, {}).get("mean")
+            if mean is None or mean <= tuned:
+                continue
+            c = info.get("comparisons", {}).get(f"{TUNED}_vs_bm25", {}).get(primary)
+            ci = (
+                f" (tuned minus BM25 {c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, "
+                f"{c['ci_high']:+.4f}])"
+                if ref == "bm25" and c
+                else ""
+            )
+            out.append(
+                f"On split {split}, {ref} scores {primary} {mean:.4f}, above the tuned model's "
+                f"{tuned:.4f}{ci}."
+            )
+    return out
+
+
+def preflight_lines(check: dict[str, Any] | None) -> list[str]:
+    """The pre-flight's figures: per gated split, the smallest gain it could detect."""
+    if not check:
+        return []
+    out = []
+    for split, info in check.get("splits", {}).items():
+        if "min_detectable_gain" in info:
+            out.append(
+                f"{split}: {info['queries']} queries, base {check.get('metric')} "
+                f"{info['base_mean']:.4f} (sd {info['base_sd']:.4f}); the smallest gain the "
+                f"gate could detect at alpha {check.get('alpha')} with "
+                f"{100 * check.get('power', 0.8):g}% power is about "
+                f"{info['min_detectable_gain']:+.4f}."
+            )
+    return out
 
 
 def _flatten(prefix: str, obj: Any) -> list[tuple[str, str]]:

@@ -13,6 +13,9 @@ from ballast.stages.report.content import (
     _num,
     _passage_text,
     _primary,
+    preflight_lines,
+    reference_notes,
+    split_line,
 )
 
 
@@ -30,11 +33,21 @@ def render_markdown(inp: ReportInputs) -> str:
     out = [f"# ballast report: {_md(inp.name)}", "", f"**{_md(words[0])}**", ""]
     out += [f"- {_md(w)}" for w in words[1:]]
     out += [""] + [f"_{_md(n)}_" for n in inp.notes]
+    checks = preflight_lines(inp.check)
+    if checks:
+        out += ["", "## Could the gate see a gain? (pre-flight)", ""]
+        out += [f"- {_md(c)}" for c in checks]
+    lexical = reference_notes(metrics, primary)
+    if lexical:
+        out += ["", "## The lexical reference (never gated)", ""]
+        out += [f"- {_md(n)}" for n in lexical]
     out += ["", "Charts are in report.html beside this file.", "", "## Base and tuned, per split"]
     for s, info in metrics.get("splits", {}).items():
         out += [
             "",
             f"### Split {_md(s)} ({info.get('n_queries', 0)} queries)",
+            "",
+            f"_{_md(split_line(s, inp.gate))}_",
             "",
             f"| metric | base | tuned | difference | {pct} interval | p | better/worse/tied |",
             "|---|---:|---:|---:|---:|---:|---:|",

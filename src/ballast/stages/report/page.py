@@ -24,6 +24,7 @@ from ballast.stages.report.charts import (
     lines_svg,
 )
 from ballast.stages.report.content import (
+    REFERENCES,
     SHOWN,
     TOP_PASSAGES,
     Example,
@@ -39,6 +40,9 @@ from ballast.stages.report.content import (
     _primary,
     _split_names,
     mean_interval,
+    preflight_lines,
+    reference_notes,
+    split_line,
 )
 
 # ---------------------------------------------------------------------------------------
@@ -148,6 +152,20 @@ def render_html(inp: ReportInputs) -> str:
     out.append("<ul>" + "".join(f"<li>{E(w)}</li>" for w in words[1:]) + "</ul>")
     for note in inp.notes:
         out.append(f'<p class="muted">{E(note)}</p>')
+    checks = preflight_lines(inp.check)
+    if checks:
+        out.append("<h3>Could the gate see a gain? (pre-flight)</h3>")
+        out.append("<ul>" + "".join(f"<li>{E(c)}</li>" for c in checks) + "</ul>")
+    lexical = reference_notes(metrics, primary)
+    if lexical:
+        out.append("<h3>The lexical reference</h3>")
+        out.append(
+            "<ul>" + "".join(f"<li>{E(n)}</li>" for n in lexical) + "</ul>"
+            '<p class="muted">BM25 and the hybrids (each model fused with BM25 by reciprocal rank '
+            "fusion) are reference rows, never gated. Where they win on real questions, "
+            "consider a hybrid index; where they win only on synthetic queries, those queries "
+            "copy the documents' words (inverse-cloze and keyword queries do).</p>"
+        )
 
     splits = _split_names(inp)
     out.append("<h2>Base and tuned, per split</h2>")
@@ -182,7 +200,18 @@ def render_html(inp: ReportInputs) -> str:
         info = metrics["splits"][s]
         origins = ", ".join(f"{E(o)} {n}" for o, n in sorted(info.get("origins", {}).items()))
         out.append(f"<h3>Split {E(s)}: {info.get('n_queries', 0)} queries ({origins})</h3>")
+        out.append(f'<p class="muted">{E(split_line(s, gate))}</p>')
         out.append(_metric_table(info, names, pct))
+        refs = [r for r in REFERENCES if r in info.get("models", {})]
+        if refs:
+            cells = "".join(
+                f"<td>{_num(info['models'][r].get(primary, {}).get('mean'))}</td>" for r in refs
+            )
+            out.append(
+                "<table><tr><th class=l>reference (not gated)</th>"
+                + "".join(f"<th>{E(r)}</th>" for r in refs)
+                + f"</tr><tr><td class=l>{E(primary)}</td>{cells}</tr></table>"
+            )
 
     out.append("<h2>Metric against the cutoff k</h2>")
     out.append(

@@ -38,10 +38,23 @@ def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -
     )
 
 
+def _preflight(run: Run, splits: dict) -> None:
+    """Training is the expensive part: refuse it when a gated split is too small to decide
+    (`ballast train` run alone gets the check stage's count check too)."""
+    from ballast.core.gate import count_problems
+
+    gated = [s for s in run.cfg.gate.splits if s != "guard"]
+    counts = {s: len(splits["queries"].get(s, [])) for s in gated}
+    problems = count_problems(counts, run.cfg.gate, len(splits["documents"].get("test", [])))
+    if problems:
+        raise StageError("pre-flight: " + "; ".join(problems))
+
+
 def train(run: Run) -> dict[str, Any]:
     from ballast.stages.train.full import train_model
 
     passages, queries, splits = run.passages(), run.queries(), run.splits()
+    _preflight(run, splits)
     by_pid = {p["id"]: p for p in passages}
     by_qid = {q["id"]: q for q in queries}
     negs = {
@@ -240,6 +253,8 @@ STAGE = Stage(
         "mine.negatives",
         "evaluate.batch_size",
         "gate.primary_metric",  # the metric that picks the best dev checkpoint
+        "gate.splits",  # the pre-flight count check
+        "gate.min_queries",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
     outputs=("model", "train.json"),
