@@ -267,3 +267,28 @@ def test_load_run_config(tmp_path: Path) -> None:
     _write(run / "config.json", "{not json")
     with pytest.raises(ConfigError, match="damaged"):
         load_run_config(run)
+
+
+def test_splits_follow_the_evidence_by_default() -> None:
+    """evaluate.splits and gate.splits left empty: real questions judge when there are some
+    (both sides), else a judge generator's queries, else the synthetic test split."""
+    from ballast.config import Config, GateConfig, GuardConfig, SynthConfig
+
+    plain = Config()
+    assert plain.evaluate.splits == ("dev", "test") and plain.gate.splits == ("test",)
+    judged = Config(synth=SynthConfig(judge_generators=("headings",)))
+    assert judged.gate.splits == ("judge",) and "judge" in judged.evaluate.splits
+    real = Config(synth=SynthConfig(questions="q.jsonl", judge_generators=("headings",)))
+    assert real.gate.splits == ("human", "human_heldout")
+    assert {"human", "human_dev", "human_heldout"} <= set(real.evaluate.splits)
+    guard = Config(guard=GuardConfig(queries="q", qrels="r", passages="p"))
+    assert guard.gate.splits == ("test", "guard") and "guard" in guard.evaluate.splits
+    explicit = Config(synth=SynthConfig(questions="q.jsonl"), gate=GateConfig(splits=("test",)))
+    assert explicit.gate.splits == ("test",)  # an explicit list is kept as written
+
+
+def test_a_judge_must_be_a_generator_the_training_does_not_use() -> None:
+    from ballast.config import SynthConfig
+
+    with pytest.raises(ConfigError, match="synth.judge_generators"):
+        SynthConfig(generators=("ict", "headings"), judge_generators=("headings",))

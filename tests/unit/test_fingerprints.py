@@ -37,6 +37,7 @@ KEY = {
     "run_dir": set(),  # where the run lives, not what it computes
     "base_model": {"ingest", "check", "mine", "train", "evaluate", "export"},
     "mine.negatives": {"mine", "train", "export"},
+    "synth.judge_generators": {"synth", "split", "export"},  # split sets their queries aside
     "train.max_seq_length": {"synth", "check", "mine", "train", "evaluate", "export"},
     "train.matryoshka_dims": {"train", "evaluate", "export"},
     "evaluate.batch_size": {"synth", "check", "mine", "train", "evaluate", "export"},

@@ -126,6 +126,21 @@ def test_assign_queries() -> None:
     }
 
 
+def test_judge_queries_never_train() -> None:
+    """A judge generator's queries judge only held-out documents and never train (an
+    independent synthetic judge: the model never saw queries of their kind)."""
+    queries = [
+        {"id": "j1", "passage_id": "p1", "origin": "headings"},  # a training document: aside
+        {"id": "j2", "passage_id": "p2", "origin": "headings"},  # a test document: judges
+        {"id": "j3", "passage_id": "p3", "origin": "headings"},  # a dev document: aside
+        {"id": "q1", "passage_id": "p1", "origin": "ict"},
+    ]
+    got = assign_queries(queries, PASSAGES, DOC_SPLIT, {"headings"})
+    assert got["judge"] == ["j2"] and got["train"] == ["q1"]
+    assert not {"j1", "j3"} & {q for ids in got.values() for q in ids}
+    assert "judge" not in assign_queries(queries[3:], PASSAGES, DOC_SPLIT)
+
+
 def test_qrels_and_trec_format() -> None:
     queries = [
         {"id": "q2", "passage_id": "p2", "origin": "ict"},

@@ -239,7 +239,7 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
         for r in results:
             typer.echo(stage_line(r))
         typer.echo("")
-        typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
+        typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN, verdict))
         typer.echo("")
         typer.echo(gate_text(verdict))
         if run.path("report.html").is_file():

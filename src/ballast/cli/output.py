@@ -69,15 +69,27 @@ def stage_line(result: dict[str, Any]) -> str:
     return f"{result['stage']:<9} {state}: {_fmt_summary(result['summary'])}"
 
 
-def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
-    """Per split: each model's mean, and each model's difference from the baseline with its
-    interval and randomization p-value."""
+def _is_reference(model: str) -> bool:
+    return model == "bm25" or model.endswith("+bm25")
+
+
+def metrics_table(
+    metrics: dict[str, Any], shown: list[str], gate: dict[str, Any] | None = None
+) -> str:
+    """Per split: what it holds and whether it is gated; each model's mean, and each model's
+    difference from the baseline with its interval and randomization p-value; the lexical
+    reference rows (BM25, hybrids) in one line of the primary metric."""
+    from ballast.core.gate import split_explained
+
     lines = []
     base = metrics.get("baseline", "base")
     pct = f"{100 * metrics['confidence']:g}%"
+    rules = {s["split"]: s.get("rule") for s in (gate or {}).get("splits", [])}
     for split, info in metrics["splits"].items():
-        names = list(info["models"])
+        names = [n for n in info["models"] if not _is_reference(n)]
+        refs = [n for n in info["models"] if _is_reference(n)]
         lines.append(f"split {split} ({info['n_queries']} queries)")
+        lines.append(f"  {split_explained(split, rules.get(split))}")
         head = "".join(f" {n[:10]:>10}" for n in names)
         lines.append(f"  {'metric':<12}{head}   diff vs {base}, {pct} interval, p")
         for m in shown:
@@ -94,6 +106,10 @@ def metrics_table(metrics: dict[str, Any], shown: list[str]) -> str:
                         f"p={r.p_value:.4f}"
                     )
             lines.append(f"  {m:<12}{means}   {'; '.join(tails)}")
+        if refs and shown and shown[0] in info["models"][refs[0]]:
+            m = shown[0]
+            vals = ", ".join(f"{n} {info['models'][n][m]['mean']:.4f}" for n in refs)
+            lines.append(f"  reference, not gated ({m}): {vals}")
     return "\n".join(lines)
 
 

@@ -22,6 +22,8 @@ title_field = "title"
 [synth]
 generators = ["ict", "keywords"]  # also "headings": section headings as queries; "llm": a
                            # local language model; "http": a chat-completions endpoint
+judge_generators = []      # generators whose queries never train: on held-out documents they
+                           # judge the model (split "judge"), e.g. ["headings"] or ["llm"]
 ict_per_passage = 1
 ict_remove_prob = 0.9      # how often the query sentence is cut from the positive
 ict_min_words = 6

@@ -70,6 +70,12 @@ class Config:
                 "guard",
                 "guard.queries, guard.qrels and guard.passages set when 'guard' is evaluated",
             )
+        if "judge" in self.evaluate.splits and not self.synth.judge_generators:
+            _fail(
+                "evaluate.splits",
+                "judge",
+                "synth.judge_generators set when the 'judge' split is evaluated",
+            )
         human = [s for s in self.evaluate.splits if s.startswith("human")]
         if human and not self.synth.questions:
             _fail(
@@ -83,12 +89,13 @@ class Config:
         real questions, the gate judges them on both sides (human must gain, human_heldout must
         not lose) and the synthetic test split is only reported."""
         real = ("human", "human_dev", "human_heldout") if self.synth.questions else ()
+        judge = ("judge",) if self.synth.judge_generators else ()
         guard = ("guard",) if self.guard.enabled else ()
         if not self.evaluate.splits:
-            ev = dataclasses.replace(self.evaluate, splits=("dev", "test", *real, *guard))
+            ev = dataclasses.replace(self.evaluate, splits=("dev", "test", *judge, *real, *guard))
             object.__setattr__(self, "evaluate", ev)
         if not self.gate.splits:
-            judged = ("human", "human_heldout") if real else ("test",)
+            judged = ("human", "human_heldout") if real else judge or ("test",)
             gate = dataclasses.replace(self.gate, splits=(*judged, *guard))
             object.__setattr__(self, "gate", gate)
 

@@ -14,9 +14,9 @@ from ballast.core.errors import ConfigError
 from ballast.core.metrics import parse_metric
 
 PACKAGED_BASE = "packaged:all-MiniLM-L6-v2"
-EVAL_SPLITS = ("train", "dev", "test", "human", "human_dev", "human_heldout", "guard")
-GATE_SPLITS = ("test", "human", "human_heldout", "guard")
-SUPERIORITY_SPLITS = ("test", "human")  # must gain; human_heldout and guard must not lose
+EVAL_SPLITS = ("train", "dev", "test", "judge", "human", "human_dev", "human_heldout", "guard")
+GATE_SPLITS = ("test", "judge", "human", "human_heldout", "guard")
+SUPERIORITY_SPLITS = ("test", "judge", "human")  # must gain; human_heldout and guard must not lose
 
 
 def _fail(key: str, value: Any, expected: str) -> typing.NoReturn:
@@ -69,6 +69,10 @@ class IngestConfig:
 @dataclass(frozen=True)
 class SynthConfig:
     generators: tuple[str, ...] = ("ict", "keywords")
+    # generators whose queries never train: on held-out documents they form the "judge" split,
+    # an independent synthetic judge (e.g. ["headings"] or ["llm"]) when there are no real
+    # questions; on training and dev documents they are set aside
+    judge_generators: tuple[str, ...] = ()
     ict_per_passage: int = 1
     ict_remove_prob: float = 0.9
     ict_min_words: int = 6
@@ -99,13 +103,25 @@ class SynthConfig:
     copy_overlap: float = 0.75
     round_trip_k: int = 0
 
+    @property
+    def all_generators(self) -> tuple[str, ...]:
+        return (*self.generators, *self.judge_generators)
+
     def __post_init__(self) -> None:
-        for g in self.generators:
-            if g not in ("ict", "keywords", "headings", "llm", "http"):
+        for key, names in (("generators", self.generators), ("judge_generators", self.judge_generators)):
+            for g in names:
+                if g not in ("ict", "keywords", "headings", "llm", "http"):
+                    _fail(
+                        f"synth.{key}",
+                        g,
+                        "a list drawn from 'ict', 'keywords', 'headings', 'llm', 'http'",
+                    )
+        for g in self.judge_generators:
+            if g in self.generators:
                 _fail(
-                    "synth.generators",
+                    "synth.judge_generators",
                     g,
-                    "a list drawn from 'ict', 'keywords', 'headings', 'llm', 'http'",
+                    "a generator the training does not use (it is in synth.generators too)",
                 )
         _check_model_synth(self)
         _range("synth.ict_per_passage", self.ict_per_passage, 0, 20)
@@ -157,7 +173,7 @@ def _check_model_synth(c: SynthConfig) -> None:
             )
         if parts.scheme not in ("http", "https") or not parts.hostname:
             _fail("synth.http_base_url", c.http_base_url, "a URL like 'http://127.0.0.1:8080/v1'")
-    if "http" in c.generators:
+    if "http" in c.all_generators:
         if not c.http_base_url:
             _fail("synth.http_base_url", "", "the endpoint's base URL when 'http' is a generator")
         if not c.http_model:
@@ -380,7 +396,8 @@ class GuardConfig:
 @dataclass(frozen=True)
 class GateConfig:
     # () = the real-question splits (human, human_heldout) when synth.questions is set, else
-    # test; and guard when it is set (resolved when the config is built)
+    # judge when synth.judge_generators is set, else test; and guard when it is set (resolved
+    # when the config is built)
     splits: tuple[str, ...] = ()
     primary_metric: str = "ndcg@10"
     min_gain: float = 0.0
@@ -404,7 +421,7 @@ class GateConfig:
             _fail(
                 "gate.splits",
                 list(self.splits),
-                "at least one split the tuned model must win on: 'test' or 'human'",
+                "at least one split the tuned model must win on: 'test', 'judge' or 'human'",
             )
         try:
             parse_metric(self.primary_metric)

@@ -25,19 +25,33 @@ if TYPE_CHECKING:  # the section's type only: core imports nothing above it
     from ballast.config import GateConfig
 
 
-SUPERIORITY = ("test", "human")
+SUPERIORITY = ("test", "judge", "human")
 # split -> (its config key of the allowed loss, what it holds)
 NON_INFERIORITY = {"human_heldout": "heldout_tolerance", "guard": "guard_tolerance"}
 REAL = ("human", "human_heldout")
 SPLIT_MEANING = {
-    "train": "synthetic queries the model trained on (never gated)",
-    "dev": "synthetic queries on dev documents: where settings are chosen (never gated)",
+    "train": "synthetic queries the model trained on",
+    "dev": "synthetic queries on dev documents: where settings are chosen",
     "test": "synthetic queries on held-out documents, from the generators the training used",
+    "judge": "synthetic queries on held-out documents, from generators the training never used "
+    "(synth.judge_generators)",
     "human": "real questions about documents the model trained on (never on the questions)",
-    "human_dev": "real questions about dev documents: where settings are chosen (never gated)",
+    "human_dev": "real questions about dev documents: where settings are chosen",
     "human_heldout": "real questions about documents the model never saw",
     "guard": "your general-domain set: the tuned model must not get worse there",
 }
+
+
+NEVER_GATED = ("train", "dev", "human_dev")
+
+
+def split_explained(split: str, rule: str | None) -> str:
+    """One line: what a split holds, and how the gate used it (``rule``: the rule it was gated
+    by, None when it was not gated)."""
+    how = {"superiority": "gated: must gain", "non-inferiority": "gated: must not lose"}.get(
+        rule or "", "never gated" if split in NEVER_GATED else "not gated"
+    )
+    return f"{SPLIT_MEANING.get(split, split)} ({how})"
 
 
 def rule_of(split: str) -> str:
@@ -53,6 +67,7 @@ WHERE_TO_ADD = {
     "human": "real questions whose answers lie in training documents",
     "human_heldout": "real questions whose answers lie only in held-out (test) documents",
     "test": "held-out documents (the test split takes split.test_fraction of them)",
+    "judge": "held-out documents, or another judge generator (synth.judge_generators)",
 }
 
 
@@ -71,7 +86,7 @@ def count_problems(
         if n >= cfg.min_queries:
             continue
         short = cfg.min_queries - n
-        if split == "test" and n and test_docs:
+        if split in ("test", "judge") and n and test_docs:
             need = f"about {math.ceil(short / (n / test_docs))} more documents in the test split"
         else:
             need = f"{short} more {WHERE_TO_ADD.get(split, 'queries')}"
@@ -194,10 +209,15 @@ def decide(
         if evidence == "real":
             summary = f"PASS on real questions: {what}"
         else:
+            source = (
+                "generators the training never used (the judge split)"
+                if "judge" in cfg.splits
+                else "the generators the training used, so they are no independent judge"
+            )
             summary = (
                 f"PASS ON SYNTHETIC QUERIES ONLY: {what}, but no real question checked it; "
-                "these queries come from the generators the training used, so they are no "
-                "independent judge. Add real questions (synth.questions) before trusting it"
+                f"these queries come from {source}. Add real questions (synth.questions) "
+                "before trusting it"
             )
     return {
         "passed": passed,

@@ -63,16 +63,26 @@ HUMAN_SPLITS = {"train": "human", "dev": "human_dev", "test": "human_heldout"}
 
 
 def assign_queries(
-    queries: list[dict], passages: dict[str, dict], doc_split: dict[str, str]
+    queries: list[dict],
+    passages: dict[str, dict],
+    doc_split: dict[str, str],
+    judges: frozenset[str] | set[str] = frozenset(),
 ) -> dict[str, list[str]]:
-    """Split name -> query ids. Generated queries follow their document. Real questions
+    """Split name -> query ids. Generated queries follow their document, except those of a
+    judge generator (origin in ``judges``): on test documents they form ``judge``, elsewhere
+    they are set aside (they never train, so that they judge independently). Real questions
     (origin ``human``) follow the documents of their answers: ``human`` when one lies in a
     training document (the model trained on that text, never on the question),
     ``human_dev`` when one lies in a dev document (never gated: where settings may be chosen),
     else ``human_heldout`` (documents the model never saw)."""
     out: dict[str, list[str]] = {s: [] for s in (*DOC_SPLITS, *HUMAN_SPLITS.values())}
+    if judges:
+        out["judge"] = []
     for q in queries:
-        if q["origin"] == "human":
+        if q["origin"] in judges:
+            if doc_split[passages[q["passage_id"]]["doc_id"]] == "test":
+                out["judge"].append(q["id"])
+        elif q["origin"] == "human":
             where = {doc_split[passages[r]["doc_id"]] for r in relevant_ids(q)}
             first = next(s for s in DOC_SPLITS if s in where)
             out[HUMAN_SPLITS[first]].append(q["id"])

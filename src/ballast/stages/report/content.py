@@ -152,18 +152,10 @@ def _gate_words(gate: dict[str, Any] | None) -> list[str]:
 
 def split_line(split: str, gate: dict[str, Any] | None) -> str:
     """One line: what a split holds and whether (and how) it is gated."""
-    from ballast.core.gate import SPLIT_MEANING
+    from ballast.core.gate import split_explained
 
-    gated = {s["split"]: s.get("rule") for s in (gate or {}).get("splits", [])}
-    rule = gated.get(split)
-    how = (
-        "gated: must gain"
-        if rule == "superiority"
-        else "gated: must not lose"
-        if rule == "non-inferiority"
-        else "not gated"
-    )
-    return f"{SPLIT_MEANING.get(split, split)} ({how})."
+    rules = {s["split"]: s.get("rule") for s in (gate or {}).get("splits", [])}
+    return split_explained(split, rules.get(split)) + "."
 
 
 REFERENCES = ("bm25", "base+bm25", "tuned+bm25")
@@ -208,7 +200,9 @@ def preflight_lines(check: dict[str, Any] | None) -> list[str]:
                 f"{info['base_mean']:.4f} (sd {info['base_sd']:.4f}); the smallest gain the "
                 f"gate could detect at alpha {check.get('alpha')} with "
                 f"{100 * check.get('power', 0.8):g}% power is about "
-                f"{info['min_detectable_gain']:+.4f}."
+                f"{info['min_detectable_gain']:+.4f} (a cautious estimate: it takes the spread "
+                "of the base scores for that of the per-query gains, which is usually smaller "
+                "because most queries tie)."
             )
     return out
 

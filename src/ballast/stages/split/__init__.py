@@ -64,7 +64,7 @@ def split(run: Run) -> dict[str, Any]:
                 "passages.jsonl; run `ballast synth` again"
             )
     by_pid = _DocOf(doc_of)
-    q_split = assign_queries(queries, by_pid, doc_split)
+    q_split = assign_queries(queries, by_pid, doc_split, set(run.cfg.synth.judge_generators))
     del by_pid, doc_of
     audit = leakage_audit(
         (p for _, p in read_jsonl(passages_path)), doc_split, run.cfg.split.leakage_threshold
@@ -97,7 +97,7 @@ def split(run: Run) -> dict[str, Any]:
 STAGE = Stage(
     "split",
     split,
-    keys=("split", "seed"),
+    keys=("split", "seed", "synth.judge_generators"),
     inputs=("passages.jsonl", "queries.jsonl"),
     outputs=("splits.json", "qrels"),
 )

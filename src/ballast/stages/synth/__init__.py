@@ -24,7 +24,7 @@ def synth(run: Run) -> dict[str, Any]:
         stats["passages"] = {"chosen": len(chosen), "of": len(passages)}
     # Filters judge generated queries only: human questions are added after them.
     removed_path = run.path("synth.removed.jsonl")
-    if any(g in MODEL_ORIGINS for g in cfg.generators) or cfg.round_trip_k:
+    if any(g in MODEL_ORIGINS for g in cfg.all_generators) or cfg.round_trip_k:
         by_id = {p["id"]: p for p in passages}
         queries, removed = rule_filter(
             queries,
@@ -87,12 +87,12 @@ def external_inputs(run: Run) -> dict[str, str]:
     out: dict[str, str] = {}
     if cfg.questions:
         out["questions"] = file_fingerprint(cfg.questions)
-    if any(g in ("llm", "http") for g in cfg.generators):
+    if any(g in ("llm", "http") for g in cfg.all_generators):
         try:
             out["prompts"] = fingerprint_tree(prompts_dir(cfg.prompts))
         except BallastError:
             out["prompts"] = "missing"
-    if "llm" in cfg.generators:
+    if "llm" in cfg.all_generators:
         from ballast.stages.synth.llm import LocalModel
 
         try:

@@ -21,12 +21,15 @@ def synthesize(
     cache_dir: str | Path | None = None,
     progress: Progress = SILENT,
 ) -> tuple[list[dict], dict[str, Any]]:
-    """Run each configured generator in turn, with one seeded generator each. The
-    model-written ones ("llm", "http") keep what they write in ``cache_dir``."""
+    """Run each configured generator in turn (the training's, then the judges'), with one
+    seeded generator each. The model-written ones ("llm", "http") keep what they write in
+    ``cache_dir``."""
     queries: list[dict] = []
     stats: dict[str, Any] = {}
     seeds = rng.integers(0, 2**63 - 1, size=len(cfg.generators))
-    for name, seed in zip(cfg.generators, seeds, strict=True):
+    # the judges draw after the training generators, so adding one changes no training query
+    seeds = [*seeds, *rng.integers(0, 2**63 - 1, size=len(cfg.judge_generators))]
+    for name, seed in zip(cfg.all_generators, seeds, strict=True):
         sub = np.random.default_rng(int(seed))
         if name in MODEL_GENERATORS:
             if cache_dir is None:
