@@ -3,8 +3,8 @@ the real questions whose answers lie in the other half (split ``human_heldout``)
 
     python -m bench.faq_gain OUT_DIR [--cache DIR] [--set KEY=VALUE ...]
 
-Prints base vs tuned nDCG@10 with the 95% interval per split and the gate's verdict on
-``human_heldout``; writes a normal ballast run folder under OUT_DIR/run.
+Prints base vs tuned nDCG@10 with the 95% interval per split and the gate's verdict (human
+must gain, human_heldout must not lose); writes a normal ballast run folder under OUT_DIR/run.
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ splits = ["test", "human", "human_heldout"]
 metrics = ["ndcg@10", "mrr@10", "recall@10"]
 
 [gate]
-splits = ["human_heldout"]
+splits = ["human", "human_heldout"]
 """
 
 
@@ -216,7 +216,7 @@ def table(result: dict) -> str:
             f"| {c['mean_diff']:+.4f} | [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}] "
             f"| {c['p_value']:.4f} |"
         )
-    lines.append(f"\ngate on human_heldout: {result['gate']['summary']}")
+    lines.append(f"\ngate: {result['gate']['summary']}")
     lines.append(f"wall time {result['seconds']} s")
     return "\n".join(lines)
 

@@ -13,7 +13,7 @@ import pytest
 SRC = Path(__file__).resolve().parents[2] / "src" / "ballast"
 
 # Lowest first. A module may import its own layer or any layer below it.
-LAYERS = ["core", "config", "io", "models", "stages", "bundle", "pipeline", "cli"]
+LAYERS = ["core", "config", "io", "models", "stages", "bundle", "people", "pipeline", "cli"]
 STAGE_NAMES = {"ingest", "synth", "split", "check", "mine", "train", "evaluate", "gate", "report", "export"}
 MAX_LINES = 600  # ~400 for most modules; the few larger ones are one concept each
 

@@ -1,9 +1,11 @@
-"""The command line: one command a stage, plus run, demo and init. The only place that prints."""
+"""The command line: one command a stage, plus run, demo, init, and the people's commands (write,
+judge, agreement). The only place that prints."""
 
 from __future__ import annotations
 
 import sys
 
+from ballast.cli import people as _people  # noqa: F401 - registers write, judge, agreement
 from ballast.cli.app import app
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import re
 import unicodedata
+from collections.abc import Sequence
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u200b-\u200f\u2028\u2029\ufeff]")
 
@@ -51,3 +52,25 @@ def passage_id(doc_id: str, text: str) -> str:
 
 def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
+
+
+_WORD = re.compile(r"\w+", re.UNICODE)
+
+
+def words(text: str) -> list[str]:
+    return _WORD.findall(text.lower())
+
+
+def ngrams(tokens: Sequence[str], n: int) -> set[tuple[str, ...]]:
+    return {tuple(tokens[i : i + n]) for i in range(len(tokens) - n + 1)}
+
+
+def copy_overlap(query: str, passage: str, n: int = 3) -> float:
+    """Share of the query's word n-grams that also occur in the passage (n shrinks to the
+    query's length for very short queries). 1.0 = every n-gram is copied."""
+    q, p = words(query), words(passage)
+    n = max(1, min(n, len(q)))
+    qg = ngrams(q, n)
+    if not qg:
+        return 0.0
+    return len(qg & ngrams(p, n)) / len(qg)

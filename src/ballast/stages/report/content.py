@@ -188,6 +188,29 @@ def reference_notes(metrics: dict[str, Any], primary: str) -> list[str]:
     return out
 
 
+def provenance_lines(inp: ReportInputs) -> list[str]:
+    """Per split of real questions: how many back it, who wrote them (the label they gave to
+    `ballast write`) and when."""
+    out = []
+    for split in _split_names(inp):
+        qids = list(inp.qrels.get(split, {}))
+        real = [inp.queries[q] for q in qids if inp.queries.get(q, {}).get("origin") == "human"]
+        if not real:
+            continue
+        authors: dict[str, int] = {}
+        dates = []
+        for q in real:
+            meta = q.get("meta") or {}
+            who = meta.get("author") or "not recorded"
+            authors[who] = authors.get(who, 0) + 1
+            if meta.get("written_at"):
+                dates.append(str(meta["written_at"])[:10])
+        who = ", ".join(f"{a} ({n})" for a, n in sorted(authors.items()))
+        when = f"; written {min(dates)} to {max(dates)}" if dates else ""
+        out.append(f"{split}: {len(real)} real questions; authors: {who}{when}.")
+    return out
+
+
 def preflight_lines(check: dict[str, Any] | None) -> list[str]:
     """The pre-flight's figures: per gated split, the smallest gain it could detect."""
     if not check:

@@ -14,6 +14,7 @@ from ballast.stages.report.content import (
     _passage_text,
     _primary,
     preflight_lines,
+    provenance_lines,
     reference_notes,
     split_line,
 )
@@ -33,6 +34,10 @@ def render_markdown(inp: ReportInputs) -> str:
     out = [f"# ballast report: {_md(inp.name)}", "", f"**{_md(words[0])}**", ""]
     out += [f"- {_md(w)}" for w in words[1:]]
     out += [""] + [f"_{_md(n)}_" for n in inp.notes]
+    backing = provenance_lines(inp)
+    if backing:
+        out += ["", "## The real questions behind the verdict", ""]
+        out += [f"- {_md(b)}" for b in backing]
     checks = preflight_lines(inp.check)
     if checks:
         out += ["", "## Could the gate see a gain? (pre-flight)", ""]

@@ -41,6 +41,7 @@ from ballast.stages.report.content import (
     _split_names,
     mean_interval,
     preflight_lines,
+    provenance_lines,
     reference_notes,
     split_line,
 )
@@ -152,6 +153,10 @@ def render_html(inp: ReportInputs) -> str:
     out.append("<ul>" + "".join(f"<li>{E(w)}</li>" for w in words[1:]) + "</ul>")
     for note in inp.notes:
         out.append(f'<p class="muted">{E(note)}</p>')
+    backing = provenance_lines(inp)
+    if backing:
+        out.append("<h3>The real questions behind the verdict</h3>")
+        out.append("<ul>" + "".join(f"<li>{E(b)}</li>" for b in backing) + "</ul>")
     checks = preflight_lines(inp.check)
     if checks:
         out.append("<h3>Could the gate see a gain? (pre-flight)</h3>")

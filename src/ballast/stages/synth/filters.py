@@ -17,11 +17,11 @@ from collections import Counter
 from collections.abc import Iterable, Sequence
 
 from ballast.core.records import relevant_ids
+from ballast.core.text import copy_overlap, words
 
 MODEL_ORIGINS = ("llm", "http")
 RULES = ("length", "chatter", "example", "copy", "duplicate", "round_trip")
 
-_WORD = re.compile(r"\w+", re.UNICODE)
 # An assistant talking instead of writing a query.
 _CHATTER_START = re.compile(
     r"^\s*(?:(?:sure|certainly|of course|okay|ok|great|absolutely)\s*[,!.:]|"
@@ -41,25 +41,6 @@ _LABEL = re.compile(
     r"\b(?:passage|question|answer|query|search|problem|request)\s*:", re.IGNORECASE
 )
 _SENTENCE_END = re.compile(r"[.!?]\s+[A-Z]")
-
-
-def words(text: str) -> list[str]:
-    return _WORD.findall(text.lower())
-
-
-def ngrams(tokens: Sequence[str], n: int) -> set[tuple[str, ...]]:
-    return {tuple(tokens[i : i + n]) for i in range(len(tokens) - n + 1)}
-
-
-def copy_overlap(query: str, passage: str, n: int = 3) -> float:
-    """Share of the query's word n-grams that also occur in the passage (n shrinks to the
-    query's length for very short queries). 1.0 = every n-gram is copied."""
-    q, p = words(query), words(passage)
-    n = max(1, min(n, len(q)))
-    qg = ngrams(q, n)
-    if not qg:
-        return 0.0
-    return len(qg & ngrams(p, n)) / len(qg)
 
 
 def chatter_reason(text: str) -> str | None:

@@ -1,7 +1,8 @@
 """Questions written by people, imported with origin ``human``.
 
 Each line of the questions file is ``{"id", "text", "doc_id", "quote"}`` (the quote locates the
-answer passage inside that document) or ``{"id", "text", "passage_id"}``.
+answer passage inside that document) or ``{"id", "text", "passage_id"}``; optional
+``"author"`` and ``"written_at"`` (what `ballast write` records) are kept in the query's meta.
 """
 
 from __future__ import annotations
@@ -60,13 +61,17 @@ def import_questions(path: str | Path, passages: list[dict]) -> list[dict]:
                     line=line,
                     field="quote",
                 )
+        meta: dict = {"relevant": relevant}
+        for key in ("author", "written_at"):  # who wrote it and when (`ballast write` records)
+            if row.get(key):
+                meta[key] = require_str(row, key, path=path, line=line)
         out.append(
             {
                 "id": qid,
                 "text": collapse(text),
                 "passage_id": relevant[0],
                 "origin": "human",
-                "meta": {"relevant": relevant},
+                "meta": meta,
             }
         )
     return out
