@@ -122,7 +122,6 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     done_path(run, stage).unlink(missing_ok=True)
     for out in spec.outputs:  # what a killed run of this stage left half-built
         remove_stale_temps(run.dir, Path(out).name)
-    write_json(run.path("config.json"), unwrap(run.cfg).to_dict())
     reads: set[str] = set()
     started = time.perf_counter()
     summary = spec.run(run.recording(reads))
@@ -138,6 +137,9 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
         if os.environ.get(STRICT_READS) == "1":
             raise RuntimeError(message)
         run.progress.info(message)
+    # the settings the outputs were made with: written only once the stage has succeeded, so
+    # a refused setting never replaces the record of the files that are there
+    write_json(run.path("config.json"), unwrap(run.cfg).to_dict())
     write_json(
         done_path(run, stage),
         {

@@ -44,8 +44,10 @@ def _encoder(bundle: Path, manifest: dict[str, Any], backend: str) -> tuple[Any,
             path=bundle / "manifest.json",
             field="onnx" + (".int8" if key else ""),
         )
+    from ballast.io.manifest import hashed_file
     from ballast.models.onnx import open_onnx
 
+    hashed_file(bundle, manifest, entry.get("path"), "onnx" + (".int8" if key else "") + ".path")
     msl = int((onnx or {}).get("max_seq_length") or manifest["model"]["max_seq_length"])
     enc = open_onnx(bundle, str(entry["path"]), msl)
     return enc, enc.dimension

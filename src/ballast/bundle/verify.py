@@ -15,7 +15,7 @@ import numpy as np
 from ballast.core.errors import InputError
 from ballast.core.progress import SILENT, Progress
 from ballast.io.files import sha256_file
-from ballast.io.manifest import MANIFEST, read_manifest
+from ballast.io.manifest import MANIFEST, UNSIGNED, hashed_file, inside, read_manifest, unlisted
 from ballast.models.verification import INT8_TOLERANCE, TOLERANCE
 
 
@@ -26,10 +26,8 @@ def _check(name: str, file: Path, ok: bool, detail: str) -> dict[str, Any]:
 def _hash_checks(bundle: Path, wanted: dict[str, str], field: str) -> list[dict[str, Any]]:
     out = []
     for rel, sha in sorted(wanted.items()):
-        f = bundle / rel
-        if ".." in Path(rel).parts or Path(rel).is_absolute():
-            out.append(_check("sha256", f, False, f"{field}: a path outside the bundle"))
-        elif not f.is_file():
+        f = inside(bundle, rel, field)
+        if not f.is_file():
             out.append(_check("sha256", f, False, f"missing (listed in manifest {field})"))
         else:
             got = sha256_file(f)
@@ -68,6 +66,7 @@ def verify_bundle(bundle: Path, *, progress: Progress = SILENT) -> dict[str, Any
     """Every check, passed or failed; ``ok`` is true only if all passed."""
     manifest = read_manifest(bundle)
     mpath = bundle / MANIFEST
+    _named_graphs(bundle, manifest)
     checks: list[dict[str, Any]] = []
     progress.info(f"verify: hashing the files of {bundle}")
     checks += _hash_checks(bundle, manifest["model"]["weights_sha256"], "model.weights_sha256")
@@ -75,6 +74,10 @@ def verify_bundle(bundle: Path, *, progress: Progress = SILENT) -> dict[str, Any
         weights = set(manifest["model"]["weights_sha256"])
         others = {k: v for k, v in manifest["files_sha256"].items() if k not in weights}
         checks += _hash_checks(bundle, others, "files_sha256")
+    stray = unlisted(bundle, manifest)
+    for rel in stray:
+        checks.append(_check("unlisted", bundle / rel, False,
+                             "a file the manifest does not name; remove it or re-export"))  # fmt: skip
     hashes_ok = all(c["ok"] for c in checks)
     ver = manifest["verification"]
     texts, want = ver.get("texts"), ver.get("embeddings")
@@ -89,7 +92,7 @@ def verify_bundle(bundle: Path, *, progress: Progress = SILENT) -> dict[str, Any
         checks.append(
             _check("embeddings", bundle, False, "not computed: the files do not match the manifest")
         )
-        return {"bundle": str(bundle), "ok": False, "checks": checks}
+        return {"bundle": str(bundle), "ok": False, "checks": checks, "note": UNSIGNED}
     from ballast.models.encode import encode
     from ballast.models.loading import load_encoder
 
@@ -103,7 +106,28 @@ def verify_bundle(bundle: Path, *, progress: Progress = SILENT) -> dict[str, Any
     onnx = manifest.get("onnx")
     if isinstance(onnx, dict):
         checks += _onnx_checks(bundle, manifest, onnx, texts, want, tol, progress)
-    return {"bundle": str(bundle), "ok": all(c["ok"] for c in checks), "checks": checks}
+    ok = all(c["ok"] for c in checks)
+    return {"bundle": str(bundle), "ok": ok, "checks": checks, "note": UNSIGNED}
+
+
+def _named_graphs(bundle: Path, manifest: dict[str, Any]) -> None:
+    """Every graph the manifest names lies inside the bundle and is among the hashed files;
+    otherwise the manifest is refused before anything is loaded (exit 2, naming the field)."""
+    onnx = manifest.get("onnx")
+    if not isinstance(onnx, dict):
+        return
+    hashed = manifest.get("files_sha256") or {}
+    named = [("onnx.path", onnx.get("path"))]
+    if isinstance(onnx.get("int8"), dict):
+        named.append(("onnx.int8.path", onnx["int8"].get("path")))
+    for field, rel in named:
+        inside(bundle, rel, field)
+        if rel not in hashed:
+            raise InputError(
+                f"{rel!r} is not among the files the manifest hashes (files_sha256)",
+                path=bundle / MANIFEST,
+                field=field,
+            )
 
 
 def _onnx_checks(
@@ -143,10 +167,7 @@ def _onnx_checks(
             )
         )
     for name, rel, expected, t, field in entries:
-        f = bundle / str(rel)
-        if not rel or not f.is_file():
-            out.append(_check(name, f, False, "missing (listed in manifest onnx)"))
-            continue
+        f = hashed_file(bundle, manifest, rel, "onnx.int8.path" if "int8" in name else "onnx.path")
         progress.info(f"verify: re-embedding the sample with {f.name}")
         got = open_onnx(bundle, str(rel), msl).encode([str(x) for x in texts])
         out.append(_compare(name, f, got, expected, t, field))

@@ -415,6 +415,7 @@ def verify_command(bundle: Bundle, as_json: Json = False, quiet: Quiet = False) 
                 state = "ok  " if c["ok"] else "FAIL"
                 typer.echo(f"{state}  {c['check']}: {c['file']}: {c['detail']}")
         typer.echo(f"bundle {'verified' if result['ok'] else 'does NOT match its manifest'}")
+        typer.echo(f"note: {result['note']}")
     if not result["ok"]:
         for c in result["checks"]:
             if not c["ok"]:

@@ -32,8 +32,9 @@ def _range(
     lo_open: bool = False,
     hi_open: bool = False,
 ) -> None:
-    bad = (lo is not None and (value <= lo if lo_open else value < lo)) or (
-        hi is not None and (value >= hi if hi_open else value > hi)
+    bad = value != value or (  # NaN compares false with everything: refuse it here
+        (lo is not None and (value <= lo if lo_open else value < lo))
+        or (hi is not None and (value >= hi if hi_open else value > hi))
     )
     if bad:
         left = "(" if lo_open else "["
@@ -157,7 +158,12 @@ def _check_model_synth(c: SynthConfig) -> None:
     _range("synth.round_trip_k", c.round_trip_k, 0, 10_000)
     # Neither message below repeats the value: it may be a secret put in the wrong place.
     env_name = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,63}")
-    if c.http_api_key_env and not env_name.fullmatch(c.http_api_key_env):
+    looks_like_a_key = (
+        len(c.http_api_key_env) >= 20
+        and any(ch.islower() for ch in c.http_api_key_env)
+        and any(ch.isdigit() for ch in c.http_api_key_env)
+    )  # variable names are short and upper case; keys are long mixes of cases and digits
+    if c.http_api_key_env and (not env_name.fullmatch(c.http_api_key_env) or looks_like_a_key):
         raise ConfigError(
             "expected the NAME of an environment variable that holds the API key (letters, "
             "digits, '_'), never the key itself",

@@ -233,9 +233,16 @@ class OnnxEncoder:
 
         opts = ort.SessionOptions()
         opts.log_severity_level = 3
-        self.session = ort.InferenceSession(
-            str(path), sess_options=opts, providers=["CPUExecutionProvider"]
-        )
+        try:
+            self.session = ort.InferenceSession(
+                str(path), sess_options=opts, providers=["CPUExecutionProvider"]
+            )
+        except Exception as exc:  # onnxruntime raises its own types for a damaged graph
+            from ballast.core.errors import InputError
+
+            raise InputError(
+                f"cannot load the ONNX graph: {str(exc).splitlines()[0][:200]}", path=path
+            ) from None
         self.names = [i.name for i in self.session.get_inputs()]
         self.tokenizer = tokenizer
         self.max_seq_length = int(max_seq_length)

@@ -35,6 +35,11 @@ def export(run: Run) -> dict[str, Any]:
     target = root / name
     if target.resolve().parent != root.resolve():
         raise StageError(f"bundle path {target} would leave the export folder {root}")
+    import shutil
+
+    for stale in [*root.glob(f".{safe_name(run.cfg.name)}-*.tmp"),
+                  *root.glob(f".{safe_name(run.cfg.name)}-*.old")]:  # fmt: skip
+        shutil.rmtree(stale, ignore_errors=True)  # what a killed export left half-built
     gated = {}
     for s, info in metrics["splits"].items():
         gated[s] = {

@@ -156,6 +156,33 @@ def _merge_lora(model: Any) -> None:
     inner.model = inner.model.merge_and_unload()
 
 
+def last_complete_checkpoint(work_dir: Path, progress: Progress = SILENT) -> Path | None:
+    """The newest checkpoint that was saved whole, or None. The Trainer writes a checkpoint's
+    files one by one and ``trainer_state.json`` among the last: a kill in between leaves a
+    folder that cannot be resumed from. Such folders are removed (and said), so the resume
+    takes the last complete one and later rotations are not confused by them."""
+    import json
+    import shutil
+
+    def step(p: Path) -> int:
+        tail = p.name.split("-", 1)[-1]
+        return int(tail) if tail.isdigit() else -1
+
+    complete = []
+    for ckpt in sorted(work_dir.glob("checkpoint-*"), key=step):
+        try:
+            json.loads((ckpt / "trainer_state.json").read_text("utf-8"))
+            ok = step(ckpt) >= 0 and any(ckpt.rglob("*.safetensors"))
+        except (OSError, ValueError):
+            ok = False
+        if ok:
+            complete.append(ckpt)
+        else:
+            progress.info(f"train: {ckpt.name} was not saved whole (killed while saving?); removed")
+            shutil.rmtree(ckpt, ignore_errors=True)
+    return complete[-1] if complete else None
+
+
 def train_model(
     base: Path,
     examples: list[dict],
@@ -262,8 +289,8 @@ def train_model(
     started = time.perf_counter()
     resume = None
     if save_steps:
-        ckpts = sorted(work_dir.glob("checkpoint-*"), key=lambda p: int(p.name.split("-")[1]))
-        resume = str(ckpts[-1]) if ckpts else None
+        last = last_complete_checkpoint(work_dir, progress)
+        resume = str(last) if last else None
     result = trainer.train(resume_from_checkpoint=resume)
     seconds = time.perf_counter() - started
     if cfg.mode == "lora":
