@@ -87,6 +87,8 @@ def _stage(
         result = run_stage(run, stage)
     except BallastError as exc:
         _fail(exc)
+    except KeyboardInterrupt:
+        _interrupted(run)
     if as_json:
         emit_json(result)
     else:
@@ -97,6 +99,20 @@ def _stage(
             typer.echo(gate_text(_read(run.path("gate.json"))))
     if stage == "gate":
         _exit_for(_read(run.path("gate.json")))
+
+
+def _interrupted(run: Any) -> None:
+    """Ctrl-C: say what is kept and how to go on, then exit 130 (128 + SIGINT)."""
+    from ballast.stages import ORDER
+
+    kept = [s for s in ORDER if run.path(f"{s}.done.json").is_file()]
+    left = [s for s in ORDER if s not in kept]
+    sys.stderr.write(
+        f"\ninterrupted. Finished stages are kept ({', '.join(kept) or 'none'}); the stage that "
+        f"was running will run again. Continue with `ballast run` on the same config "
+        f"({len(left)} stage(s) to go).\n"
+    )
+    raise typer.Exit(130)
 
 
 def _read(p: Path) -> Any:
@@ -224,6 +240,8 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
         results = run_all(run)
     except BallastError as exc:
         _fail(exc)
+    except KeyboardInterrupt:
+        _interrupted(run)
     verdict = _read(run.path("gate.json"))
     exported = next((r for r in results if r["stage"] == "export" and not r["skipped"]), None)
     if as_json:
