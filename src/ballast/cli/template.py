@@ -118,6 +118,8 @@ early_stopping_patience = 0  # stop after this many dev scores without a gain; 0
                            # (mode = "adapter" scores dev every epoch: epochs)
 bf16 = "auto"              # bfloat16 autocast: true, false, or "auto": on where bfloat16 is
                            # native (AVX-512 BF16 / AMX CPUs, GPUs), off where it is emulated
+mix_weights = [0.0, 0.25, 0.5, 0.75, 1.0]  # the safety net: these mixes of base (0) and tuned
+                           # (1) weights are scored on dev and the best kept; [] = off
 
 [evaluate]
 splits = []               # [] = every split there is: dev, test; with synth.questions also

@@ -285,7 +285,15 @@ class TrainConfig:
     # quality measured; emulated on other CPUs it is ~19x slower, so "auto" leaves it off there.
     bf16: bool | str = "auto"
 
+    # the safety net: after training, these interpolations of base (0) and tuned (1) weights
+    # are scored on the dev queries and the best kept (WiSE-FT); [] = keep the tuned model
+    mix_weights: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
+
     def __post_init__(self) -> None:
+        for w in self.mix_weights:
+            _range("train.mix_weights", w, 0.0, 1.0)
+        if len(set(self.mix_weights)) != len(self.mix_weights):
+            _fail("train.mix_weights", list(self.mix_weights), "distinct weights")
         if self.mode not in ("full", "adapter", "lora"):
             _fail("train.mode", self.mode, "'full', 'adapter' or 'lora'")
         if self.adapter_side not in ("query", "both"):

@@ -86,6 +86,9 @@ def export(run: Run) -> dict[str, Any]:
                 k: train_stats.get(k)
                 for k in ("pairs", "steps", "seconds", "hard_negatives_per_pair")
             },
+            # the base/tuned interpolation kept by the safety net (None: the tuned model as
+            # trained)
+            "mix": train_stats.get("mix"),
         },
         "data_sha256": data,
         "metrics": gated,

@@ -20,7 +20,8 @@ def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -
     from ballast.core.records import qrels_for
     from ballast.stages.train.full import DevSet
 
-    qids = splits["queries"].get("dev", [])
+    # the dev splits: synthetic queries on dev documents and the real questions about them
+    qids = [*splits["queries"].get("dev", []), *splits["queries"].get("human_dev", [])]
     if not qids:
         raise StageError(
             "train.eval_steps scores the dev split, which has no queries: set "
@@ -111,6 +112,7 @@ def train(run: Run) -> dict[str, Any]:
             stats = train_frozen_adapter(run, examples, indexed, passages, dev, tmp)
         else:
             stats = fit(out_dir=tmp)
+            stats["mix"] = _safety_net(run, tmp, dev, passages, queries, splits)
         write_json(
             tmp / "ballast_train.json",
             {
@@ -128,6 +130,46 @@ def train(run: Run) -> dict[str, Any]:
     stats["processes"] = world
     write_json(run.path("train.json"), stats)
     return {k: v for k, v in stats.items() if k != "loss_history"}
+
+
+def _safety_net(
+    run: Run, model_dir: Path, dev: Any, passages: list[dict], queries: list[dict], splits: dict
+) -> dict[str, Any] | None:
+    """train.mix_weights: keep the interpolation of base and tuned weights that scores best on
+    the dev queries (weight 0 is the base model; stages/train/mix.py)."""
+    weights = tuple(run.cfg.train.mix_weights)
+    if not weights:
+        return None
+    if not (splits["queries"].get("dev") or splits["queries"].get("human_dev")):
+        run.progress.info("train: no dev queries, so the base/tuned mix is not chosen; tuned kept")
+        return None
+    from ballast.models.encode import encode_cached
+    from ballast.models.loading import load_encoder
+    from ballast.stages.train.mix import choose_weight
+
+    dev = dev or dev_set(run, passages, queries, splits)
+    base = run.base_encoder()
+    base_passages = encode_cached(
+        base, run.base_fp, dev.passage_texts, run.cache(), batch_size=dev.batch_size,
+        label="encoding passages (base)", progress=run.progress,
+    )  # fmt: skip
+    tuned = load_encoder(model_dir, max_seq_length=run.cfg.train.max_seq_length)
+    run.progress.info(f"train: scoring base/tuned mixes {', '.join(f'{w:g}' for w in weights)} "
+                      f"on {len(dev.query_texts)} dev queries")  # fmt: skip
+    best, scores, candidates = choose_weight(
+        base, tuned, dev, weights, base_passages=base_passages, progress=run.progress
+    )
+    if best != 1.0:
+        tuned.save(str(model_dir), create_model_card=False, safe_serialization=True)
+    run.progress.info(f"train: kept weight {best:g} of the tuned model (dev {dev.metric}: "
+                      + ", ".join(f"{w} {v:.4f}" for w, v in scores.items()) + ")")  # fmt: skip
+    return {
+        "weight": best,
+        "dev_scores": scores,
+        "dev_queries": len(dev.query_texts),
+        "candidates": candidates,
+        "metric": dev.metric,
+    }
 
 
 def train_frozen_adapter(
