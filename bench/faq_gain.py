@@ -170,7 +170,8 @@ def tuned_scores(run_dir: Path, split: str = "human_heldout") -> dict[str, float
 
 def paired_tuned(a: Path, b: Path, split: str = "human_heldout", seed: int = 0) -> dict:
     """Tuned model of run ``b`` against tuned model of run ``a`` on the same queries: the
-    paired bootstrap interval and randomization test ballast's evaluation uses (ballast.core.stats)."""
+    paired bootstrap interval and randomization test ballast's evaluation uses
+    (ballast.core.stats)."""
     import numpy as np
 
     from ballast.core.stats import compare

@@ -77,7 +77,8 @@ def test_write_kill_after_six_then_resume_to_ten(project: Path, tmp_path: Path) 
     got = rows(out)
     assert len(got) == 10 and len({r["passage_id"] for r in got}) == 10
     assert all(r["author"] == "tester" and r["written_at"] for r in got)
-    passages = [json.loads(x) for x in (tmp_path / "run" / "passages.jsonl").read_text().splitlines()]
+    lines = (tmp_path / "run" / "passages.jsonl").read_text().splitlines()
+    passages = [json.loads(x) for x in lines]
     assert len(import_questions(out, passages)) == 10  # the file the pipeline reads
     assert "0 passage(s) left" in done.stdout
 

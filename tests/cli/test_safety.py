@@ -89,7 +89,8 @@ def test_a_refused_run_keeps_the_recorded_settings(tmp_path: Path) -> None:
     r = runner.invoke(app, ["evaluate", str(run), "--set", "guard.queries=/nonexistent/q.tsv",
                             "--set", "guard.qrels=/nonexistent/q.qrels", "--set",
                             "guard.passages=/nonexistent/p.tsv", "--set",
-                            "evaluate.splits=['test','guard']"], catch_exceptions=False)  # fmt: skip
+                            "evaluate.splits=['test','guard']"],
+                      catch_exceptions=False)  # fmt: skip
     assert r.exit_code == 2
     assert (run / "config.json").read_bytes() == before
 

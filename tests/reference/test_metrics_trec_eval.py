@@ -1,4 +1,5 @@
-"""ballast.core.metrics against outside sources: trec_eval, Wikipedia's DCG example, scikit-learn."""
+"""ballast.core.metrics against outside sources: trec_eval, Wikipedia's DCG example,
+scikit-learn."""
 
 from __future__ import annotations
 

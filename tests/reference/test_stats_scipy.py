@@ -1,4 +1,5 @@
-"""ballast.core.stats against scipy.stats, statsmodels (if installed) and a hand-worked Holm example."""
+"""ballast.core.stats against scipy.stats, statsmodels (if installed) and a hand-worked Holm
+example."""
 
 from __future__ import annotations
 

@@ -47,7 +47,8 @@ def test_sigkill_after_checkpoint_then_resume(tmp_path: Path) -> None:
     proc.wait()
     assert not (run / "train.done.json").exists()
     # a kill in the middle of a checkpoint save: a newer checkpoint without its trainer state
-    complete = sorted(p.parent.name for p in run.glob(".train-work/checkpoint-*/trainer_state.json"))
+    states = run.glob(".train-work/checkpoint-*/trainer_state.json")
+    complete = sorted(p.parent.name for p in states)
     half = run / ".train-work" / "checkpoint-999"
     half.mkdir(exist_ok=True)
     (half / "model.safetensors").write_bytes(b"half")

@@ -1,4 +1,5 @@
-"""ballast.stages.train.adapter: the residual linear map on frozen embeddings (common practice: identity
+"""ballast.stages.train.adapter: the residual linear map on frozen embeddings (common practice:
+identity
 initialisation of a residual map, MultipleNegativesRankingLoss's in-batch softmax; the planted
 distortion is a synthetic check that the map can undo a linear change of the query space)."""
 

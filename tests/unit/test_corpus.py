@@ -1,4 +1,5 @@
-"""ballast.stages.ingest.documents (readers, normalising, chunking, ids) and ballast.io.files (strict reading, atomic
+"""ballast.stages.ingest.documents (readers, normalising, chunking, ids) and ballast.io.files
+(strict reading, atomic
 writes). Common practice throughout; a whitespace token counter stands in for the tokenizer."""
 
 from __future__ import annotations

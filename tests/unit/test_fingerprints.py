@@ -177,7 +177,9 @@ def test_a_real_run_reruns_only_what_a_change_touches(tmp_path: Path) -> None:
     docs = tmp_path / "docs"
     docs.mkdir()
     for i in range(6):
-        sentences = " ".join(f"Valve {i}{j} is checked every {j + 2} days by the crew." for j in range(8))
+        sentences = " ".join(
+            f"Valve {i}{j} is checked every {j + 2} days by the crew." for j in range(8)
+        )
         (docs / f"d{i}.md").write_text(f"# Doc {i}\n\n{sentences}\n", "utf-8")
     cfg_file = tmp_path / "ballast.toml"
     cfg_file.write_text(f'name = "r"\nrun_dir = "run"\n[ingest]\ndocs = "{docs}"\n', "utf-8")

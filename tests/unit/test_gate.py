@@ -1,4 +1,5 @@
-"""ballast.core.gate.decide: the release rule (common practice for a paired comparison: the mean gain
+"""ballast.core.gate.decide: the release rule (common practice for a paired comparison: the mean
+gain
 must reach the required size and its confidence interval must lie above zero)."""
 
 from __future__ import annotations

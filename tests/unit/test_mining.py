@@ -479,7 +479,9 @@ def test_the_stage_loop_screens_each_query_and_draws_in_order() -> None:
     doc_of = [f"d{i}" for i in range(n)]
     text_key = [f"t{i}" for i in range(n)]
     sh = LazyShingles([f"passage number {i} about topic {i}" for i in range(n)])
-    ranked = np.array([[0, 1, 2, 3, 4, 5, 6, 7], [7, 6, 5, 4, 3, 2, 1, 0], [3, 1, 4, 0, 5, 2, 6, 7]])
+    ranked = np.array(
+        [[0, 1, 2, 3, 4, 5, 6, 7], [7, 6, 5, 4, 3, 2, 1, 0], [3, 1, 4, 0, 5, 2, 6, 7]]
+    )
     scores = np.sort(np.random.default_rng(1).uniform(0.1, 0.9, (3, n)), axis=1)[:, ::-1]
     positives, pos_scores = [0, 7, 3], [0.95, 0.95, 0.95]
     relevant = [frozenset({0, 2}), frozenset({7}), frozenset({3})]

@@ -1,4 +1,5 @@
-"""ballast.stages.mine.rescore and the mine stage's second opinion, on tiny randomly initialised models built
+"""ballast.stages.mine.rescore and the mine stage's second opinion, on tiny randomly initialised
+models built
 here (no cross-encoder or small causal LM ships in any package): the plumbing, not the quality.
 Query likelihood follows Sachan et al. 2022 (UPR): the mean log-probability of the query tokens
 given the passage; it is checked against the same sum computed by hand without padding."""

@@ -1,4 +1,5 @@
-"""Hand-computed and property cases for ballast.core.stats (common practice where no source is named)."""
+"""Hand-computed and property cases for ballast.core.stats (common practice where no source is
+named)."""
 
 from __future__ import annotations
 

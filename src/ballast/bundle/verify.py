@@ -76,8 +76,8 @@ def verify_bundle(bundle: Path, *, progress: Progress = SILENT) -> dict[str, Any
         checks += _hash_checks(bundle, others, "files_sha256")
     stray = unlisted(bundle, manifest)
     for rel in stray:
-        checks.append(_check("unlisted", bundle / rel, False,
-                             "a file the manifest does not name; remove it or re-export"))  # fmt: skip
+        why = "a file the manifest does not name; remove it or re-export"
+        checks.append(_check("unlisted", bundle / rel, False, why))
     hashes_ok = all(c["ok"] for c in checks)
     ver = manifest["verification"]
     texts, want = ver.get("texts"), ver.get("embeddings")

@@ -109,7 +109,8 @@ class SynthConfig:
         return (*self.generators, *self.judge_generators)
 
     def __post_init__(self) -> None:
-        for key, names in (("generators", self.generators), ("judge_generators", self.judge_generators)):
+        lists = (("generators", self.generators), ("judge_generators", self.judge_generators))
+        for key, names in lists:
             for g in names:
                 if g not in ("ict", "keywords", "headings", "llm", "http"):
                     _fail(
