@@ -111,3 +111,21 @@ def test_a_key_typed_where_its_variable_name_belongs_is_not_echoed(tmp_path: Pat
                       catch_exceptions=False)  # fmt: skip
     assert r.exit_code == 2 and secret not in r.stderr + r.stdout
     assert secret not in (run / "config.json").read_text("utf-8")
+
+
+def test_the_bundle_reads_as_far_as_the_base_model(tmp_path: Path) -> None:
+    """Trained at 128 tokens, the bundle still reads 256, as the base model does, and the
+    manifest says both (an index with longer chunks is not cut short without a word)."""
+    run = make_run(tmp_path, gate_passes=True, with_model=True)
+    cfg_file = run / "model" / "sentence_bert_config.json"
+    cfg = json.loads(cfg_file.read_text("utf-8"))
+    cfg["max_seq_length"] = 128  # as the train stage saves it
+    cfg_file.write_text(json.dumps(cfg), "utf-8")
+    r = runner.invoke(app, ["export", str(run)], catch_exceptions=False)
+    assert r.exit_code == 0 and "reads up to 256 tokens" in r.stderr
+    bundle = next((run / "bundle").iterdir())
+    assert json.loads((bundle / "sentence_bert_config.json").read_text())["max_seq_length"] == 256
+    manifest = json.loads((bundle / "manifest.json").read_text())
+    assert manifest["model"]["max_seq_length"] == 256
+    assert manifest["model"]["trained_max_seq_length"] == 128
+    assert runner.invoke(app, ["verify", str(bundle)]).exit_code == 0

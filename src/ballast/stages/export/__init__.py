@@ -18,7 +18,7 @@ def export(run: Run) -> dict[str, Any]:
     from ballast.io.manifest import SCHEMA_VERSION, library_versions, safe_name
     from ballast.models.loading import weights_hash
     from ballast.models.query_map import adapter_facts
-    from ballast.stages.export.bundle import copy_model, model_facts
+    from ballast.stages.export.bundle import copy_model, model_facts, restore_length
 
     model_dir = run.need("model", "train")
     verdict = json.loads(run.need("gate.json", "gate").read_text("utf-8"))
@@ -111,6 +111,14 @@ def export(run: Run) -> dict[str, Any]:
     }
     with atomic_dir(target) as tmp:
         copy_model(model_dir, tmp)
+        lengths = restore_length(tmp, run.base_path)
+        if lengths:
+            manifest["model"]["max_seq_length"] = lengths["bundle"]
+            run.progress.info(
+                f"export: the bundle reads up to {lengths['bundle']} tokens, as the base model "
+                f"does (trained on up to {lengths['trained']}: train.max_seq_length)"
+            )
+        manifest["model"]["trained_max_seq_length"] = run.cfg.train.max_seq_length
         from ballast.io.manifest import files_hash
         from ballast.models.verification import verification_sample
 

@@ -41,3 +41,30 @@ def copy_model(src: Path, dst: Path) -> None:
         else:
             target.parent.mkdir(parents=True, exist_ok=True)
             shutil.copyfile(f, target)
+
+
+def restore_length(bundle: Path, base_dir: Path) -> dict[str, int] | None:
+    """Give the bundle the base model's ``max_seq_length`` (training may have used a shorter
+    one, ``train.max_seq_length``: an index builder with longer chunks would otherwise be cut
+    short without a word). Returns {"bundle": …, "trained": …} when it changed anything."""
+    import json
+
+    def length(folder: Path) -> int | None:
+        f = folder / "sentence_bert_config.json"
+        try:
+            return int(json.loads(f.read_text("utf-8"))["max_seq_length"])
+        except (OSError, ValueError, KeyError, TypeError):
+            return None
+
+    base = length(base_dir)
+    if base is None:
+        return None
+    changed = None
+    for f in sorted(bundle.rglob("sentence_bert_config.json")):
+        cfg = json.loads(f.read_text("utf-8"))
+        trained = cfg.get("max_seq_length")
+        if isinstance(trained, int) and trained != base:
+            cfg["max_seq_length"] = base
+            f.write_text(json.dumps(cfg, indent=2) + "\n", "utf-8")
+            changed = {"bundle": base, "trained": trained}
+    return changed
