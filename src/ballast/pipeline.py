@@ -111,6 +111,33 @@ def run_stage(run: Run, stage: str, *, skip_unchanged: bool = False) -> dict[str
         return _run_locked(run, stage, skip_unchanged)
 
 
+def _say_what_changed(run: Run, stage: str, parts: dict[str, Any]) -> None:
+    """When a stage runs again because settings it reads changed, say which (never silently:
+    a dropped questions file, say, changes what the gate judges)."""
+    try:
+        old = json.loads(done_path(run, stage).read_text("utf-8")).get("config")
+    except (OSError, ValueError, AttributeError):
+        return
+    if not isinstance(old, dict):
+        return
+    changed = [k for k in parts["config"] if k in old and old[k] != parts["config"][k]]
+    if changed:
+
+        def short(v: Any) -> str:
+            text = json.dumps(v, sort_keys=True)
+            return text if len(text) <= 60 else text[:57] + "..."
+
+        diffs = []
+        for k in changed:
+            a, b = old[k], parts["config"][k]
+            if isinstance(a, dict) and isinstance(b, dict):
+                diffs += [f"{k}.{x} {short(a.get(x))} -> {short(b.get(x))}"
+                          for x in sorted(set(a) | set(b)) if a.get(x) != b.get(x)]  # fmt: skip
+            else:
+                diffs.append(f"{k} {short(a)} -> {short(b)}")
+        run.progress.info(f"{stage}: settings changed since its last run: {'; '.join(diffs)}")
+
+
 def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     spec = STAGES[stage]
     fp, parts = fingerprint(run, stage)
@@ -119,6 +146,7 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
         if done is not None:
             run.progress.info(f"{stage}: unchanged, skipped")
             return {"stage": stage, "skipped": True, "summary": done["summary"]}
+    _say_what_changed(run, stage, parts)
     done_path(run, stage).unlink(missing_ok=True)
     for out in spec.outputs:  # what a killed run of this stage left half-built
         remove_stale_temps(run.dir, Path(out).name)
@@ -139,7 +167,8 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
         run.progress.info(message)
     # the settings the outputs were made with: written only once the stage has succeeded, so
     # a refused setting never replaces the record of the files that are there
-    write_json(run.path("config.json"), unwrap(run.cfg).to_dict())
+    if run.persist_config:
+        write_json(run.path("config.json"), unwrap(run.cfg).to_dict())
     write_json(
         done_path(run, stage),
         {

@@ -129,3 +129,15 @@ def test_the_bundle_reads_as_far_as_the_base_model(tmp_path: Path) -> None:
     assert manifest["model"]["max_seq_length"] == 256
     assert manifest["model"]["trained_max_seq_length"] == 128
     assert runner.invoke(app, ["verify", str(bundle)]).exit_code == 0
+
+
+def test_a_one_off_setting_does_not_stick_and_a_change_is_said(tmp_path: Path) -> None:
+    run = make_run(tmp_path, gate_passes=True)
+    before = (run / "config.json").read_bytes()
+    r = runner.invoke(app, ["gate", str(run), "--set", "gate.min_gain=0.9"],
+                      catch_exceptions=False)  # fmt: skip
+    assert r.exit_code == 1  # the stricter bar, this once
+    assert (run / "config.json").read_bytes() == before
+    r = runner.invoke(app, ["gate", str(run)], catch_exceptions=False)
+    assert r.exit_code == 3  # back to the run's own settings (a synthetic-only pass)
+    assert "gate: settings changed since its last run: gate.min_gain 0.9 -> 0.0" in r.stderr

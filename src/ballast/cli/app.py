@@ -84,6 +84,7 @@ def _stage(
     try:
         cfg = _load(target, sets)
         run = Run(cfg, StderrProgress(quiet or as_json), force_export=force)
+        run.persist_config = not (target.is_dir() and sets)  # a one-off --set does not stick
         result = run_stage(run, stage)
     except BallastError as exc:
         _fail(exc)

@@ -29,6 +29,10 @@ class Run:
     progress: Progress = SILENT
     force_export: bool = False
     notes: list[str] = field(default_factory=list)
+    # config.json records the settings later run-folder commands start from; a one-off
+    # `--set` on a run folder does not change them (the done markers record what each stage
+    # actually used)
+    persist_config: bool = True
 
     @property
     def dir(self) -> Path:
