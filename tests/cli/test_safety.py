@@ -141,3 +141,31 @@ def test_a_one_off_setting_does_not_stick_and_a_change_is_said(tmp_path: Path) -
     r = runner.invoke(app, ["gate", str(run)], catch_exceptions=False)
     assert r.exit_code == 3  # back to the run's own settings (a synthetic-only pass)
     assert "gate: settings changed since its last run: gate.min_gain 0.9 -> 0.0" in r.stderr
+
+
+def test_a_text_file_with_nul_bytes_is_refused(tmp_path: Path) -> None:
+    from tests.conftest import write_config
+
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "good.txt").write_text("The press is rinsed after every batch.\n" * 5, "utf-8")
+    (docs / "junk.txt").write_bytes(b"ABC\x00\x00DEF\x00" * 50)
+    cfg = write_config(tmp_path, docs)
+    r = runner.invoke(app, ["ingest", str(cfg)], catch_exceptions=False)
+    assert r.exit_code == 2 and "junk.txt" in r.stderr and "NUL" in r.stderr
+    assert not (tmp_path / "run" / "passages.jsonl").exists()
+
+
+def test_judgements_of_unknown_queries_are_counted_not_dropped(tmp_path: Path) -> None:
+    (tmp_path / "q.tsv").write_text("q1\thow is the press rinsed\n", "utf-8")
+    (tmp_path / "p.tsv").write_text("d1\tThe press is rinsed after every batch.\nd2\tOther.\n")
+    (tmp_path / "qrels").write_text("q1 0 d1 1\nq9 0 d2 1\nq8 0 d1 2\n", "utf-8")
+    r = runner.invoke(app, ["evaluate", "--model", "packaged:all-MiniLM-L6-v2", "--queries",
+                            str(tmp_path / "q.tsv"), "--qrels", str(tmp_path / "qrels"),
+                            "--passages", str(tmp_path / "p.tsv"), "--out", str(tmp_path / "e"),
+                            "--set", "evaluate.metrics=['ndcg@3']"],
+                      catch_exceptions=False)  # fmt: skip
+    assert r.exit_code == 0, r.output
+    metrics = json.loads((tmp_path / "e" / "metrics.json").read_text("utf-8"))
+    assert metrics["qrels_for_unknown_queries"] == 2
+    assert "2 judged query id(s)" in r.stderr

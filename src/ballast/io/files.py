@@ -140,6 +140,13 @@ def read_text(path: str | Path) -> str:
             path=path,
             line=line,
         ) from None
+    nul = data.find(b"\x00")
+    if nul >= 0:  # valid UTF-8, but no text file holds NUL bytes: binary data or UTF-16
+        raise InputError(
+            f"binary data (a NUL byte at offset {nul}), not text; save it as UTF-8 text",
+            path=path,
+            line=data.count(b"\n", 0, nul) + 1,
+        )
     return text.removeprefix("\ufeff")
 
 

@@ -32,9 +32,10 @@ def write_evaluation(
 
 def file_set(
     name: str, queries: str | Path, qrels: str | Path, passages: str | Path
-) -> tuple[Corpus, EvalSet, int]:
-    """An evaluation set from TREC-style files: the corpus, the judged queries, and how many
-    queries had no relevant judgement (left out)."""
+) -> tuple[Corpus, EvalSet, int, int]:
+    """An evaluation set from TREC-style files: the corpus, the judged queries, how many
+    queries had no relevant judgement (left out), and how many judged query ids are not in
+    the queries file (their judgements cannot be used: said, never silently dropped)."""
     from ballast.core.errors import InputError
     from ballast.io.trec import read_qrels, read_texts
 
@@ -61,14 +62,23 @@ def file_set(
         [name] * len(kept),
         [judged[q] for q, _ in kept],
     )
-    return corpus, evalset, len(qlist) - len(kept)
+    asked = {q for q, _ in qlist}
+    unknown = sum(1 for q in judged if q not in asked)
+    return corpus, evalset, len(qlist) - len(kept), unknown
 
 
-def guard_set(run: Run) -> tuple[Corpus, EvalSet]:
-    """The general-domain guard split from the user's TREC-style files."""
+def guard_set(run: Run) -> tuple[Corpus, EvalSet, dict[str, int]]:
+    """The general-domain guard split from the user's TREC-style files, and what of them could
+    not be used (queries without a relevant judgement, judged ids not among the queries)."""
     g = run.cfg.guard
-    corpus, evalset, _ = file_set("guard", g.queries, g.qrels, g.passages)
-    return corpus, evalset
+    corpus, evalset, unjudged, unknown = file_set("guard", g.queries, g.qrels, g.passages)
+    left_out = {"queries_without_judgements": unjudged, "qrels_for_unknown_queries": unknown}
+    if unjudged or unknown:
+        run.progress.info(
+            f"evaluate: guard: {unjudged} query(ies) without a relevant judgement and "
+            f"{unknown} judged query id(s) not in {g.queries} are left out"
+        )
+    return corpus, evalset, left_out
 
 
 def evaluate(run: Run) -> dict[str, Any]:
@@ -95,7 +105,7 @@ def evaluate(run: Run) -> dict[str, Any]:
     sets = []
     for s in cfg.splits:
         if s == "guard":
-            corpora["guard"], guard = guard_set(run)
+            corpora["guard"], guard, guard_left_out = guard_set(run)
             sets.append(guard)
             continue
         qids = splits["queries"].get(s, [])
@@ -139,8 +149,13 @@ def evaluate(run: Run) -> dict[str, Any]:
         pairs=(("tuned", "bm25"),),
     )
     summary["skipped_splits"] = skipped
+    if "guard" in corpora:
+        summary["guard_left_out"] = guard_left_out
     write_evaluation(run.dir, summary, per_query_rows(per_query, sets, metrics), run_files)
-    return {"splits": {s.name: len(s.qids) for s in sets}, "skipped_splits": skipped}
+    out = {"splits": {s.name: len(s.qids) for s in sets}, "skipped_splits": skipped}
+    if "guard" in corpora:
+        out["guard_left_out"] = guard_left_out
+    return out
 
 
 def evaluate_files(
@@ -172,7 +187,7 @@ def evaluate_files(
             )
         path = resolve_model(spec)
         named[name] = (path, model_fingerprint(path))
-    corpus, evalset, unjudged = file_set("set", queries, qrels, passages)
+    corpus, evalset, unjudged, unknown = file_set("set", queries, qrels, passages)
     corpora, sets = {"set": corpus}, [evalset]
     ev = cfg.evaluate
     metrics = list(ev.metrics)
@@ -199,6 +214,9 @@ def evaluate_files(
         confidence=ev.confidence,
     )
     summary["queries_without_judgements"] = unjudged
+    summary["qrels_for_unknown_queries"] = unknown
+    if unknown:
+        progress.info(f"evaluate: {unknown} judged query id(s) in {qrels} are not in {queries}")
     write_evaluation(out, summary, per_query_rows(per_query, sets, metrics), run_files)
     return summary
 
