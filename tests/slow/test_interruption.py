@@ -86,8 +86,11 @@ def test_ctrl_c_says_what_is_kept_and_exits_130(tmp_path: Path) -> None:
     goes on from there (common practice: 128 + the signal's number)."""
     cfg = project(tmp_path)
     run = cfg.parent / "run"
+    # a job started in the background by a shell ignores SIGINT, and an ignored signal stays
+    # ignored across exec: give the child the default handling a terminal would
     proc = subprocess.Popen([sys.executable, "-m", "ballast", "run", str(cfg)], cwd=cfg.parent,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     deadline = time.monotonic() + 300
     while not list(run.glob(".model.*.tmp")) and time.monotonic() < deadline:
         assert proc.poll() is None, "the run ended before training started"
