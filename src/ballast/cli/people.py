@@ -70,10 +70,8 @@ def write_command(
         book = QuestionBook(out, drafts, author)
         if import_ is not None:
             rows, empty = read_worksheet(import_, {p["id"]: p for p in passages}, author)
-            have = {r["id"] for r in book.rows}
-            book.rows += [r for r in rows if r["id"] not in have]
-            book._save()
-            typer.echo(f"imported {len(rows)} question(s) ({empty} row(s) left empty) into {out}")
+            added = book.add(rows)
+            typer.echo(f"imported {added} question(s) ({empty} row(s) left empty) into {out}")
             return
         if worksheet is not None:
             from ballast.io.files import write_text_atomic
@@ -152,8 +150,7 @@ def judge_command(
             book = JudgementBook(out, pool(ranked, [q for q, _ in qlist], k, run.cfg.seed))
         passages = {p["id"]: p["text"] for p in run.passages()}
         if import_ is not None:
-            book.qrels = read_worksheet(import_, book.pooled)
-            book._save()
+            book.replace(read_worksheet(import_, book.pooled))
             typer.echo(f"imported {sum(len(v) for v in book.qrels.values())} grade(s) into {out}")
             return
         if worksheet is not None:

@@ -16,6 +16,14 @@ import dataclasses
 from typing import Any
 
 ALL = "*"
+_FIELDS: dict[type, frozenset[str]] = {}  # field names per config class, looked up once
+
+
+def _fields(obj: Any) -> frozenset[str]:
+    names = _FIELDS.get(type(obj))
+    if names is None:
+        names = _FIELDS[type(obj)] = frozenset(f.name for f in dataclasses.fields(obj))
+    return names
 
 
 class ConfigView:
@@ -29,8 +37,7 @@ class ConfigView:
     def __getattr__(self, name: str) -> Any:
         obj, prefix, reads = self._obj, self._prefix, self._reads
         value = getattr(obj, name)
-        fields = {f.name for f in dataclasses.fields(obj)}
-        if name in fields:
+        if name in _fields(obj):
             key = prefix + name
             if dataclasses.is_dataclass(value) and not isinstance(value, type):
                 return ConfigView(value, reads, key + ".")

@@ -71,13 +71,13 @@ WHERE_TO_ADD = {
 }
 
 
-def count_problems(
-    counts: dict[str, int], cfg: GateConfig, test_docs: int = 0
-) -> list[str]:
+def count_problems(splits: dict[str, Any], cfg: GateConfig) -> list[str]:
     """What stops the gate before any training: a gated split with fewer than
-    ``gate.min_queries`` queries can only fail, so ``ballast run`` says so at once. ``counts``:
-    queries per split; ``test_docs``: documents in the test split, to say how many more a
-    synthetic test split would need (guard, the user's own set, is not counted here)."""
+    ``gate.min_queries`` queries can only fail, so ``ballast run`` says so at once. ``splits``:
+    splits.json's content (queries per split; the test documents, to say how many more a
+    synthetic split would need). Guard, the user's own set, is not counted here."""
+    counts = {s: len(ids) for s, ids in splits["queries"].items()}
+    test_docs = len(splits["documents"].get("test", []))
     out = []
     for split in cfg.splits:
         if split == "guard":

@@ -87,9 +87,12 @@ def screen(
     margin = positive_score - cfg.max_margin if cfg.max_margin > 0 else None
     absolute = cfg.max_score if cfg.max_score < 1.0 else None
     pos_sh = shingles_of[positive] if cfg.near_duplicate > 0 and shingles_of is not None else None
+    # the settings the loop reads, once (a query screens up to window_end candidates)
+    end, start, near = cfg.window_end, cfg.window_start, cfg.near_duplicate
+    same_doc = cfg.exclude_same_doc
     eligible, dropped = [], []
     for rank, (i, s) in enumerate(zip(ranked.tolist(), scores.tolist(), strict=True)):
-        if rank >= cfg.window_end:
+        if rank >= end:
             break
         rule, extra = None, {}
         if i == positive or i in also_relevant:
@@ -99,10 +102,10 @@ def screen(
         elif (
             pos_sh is not None
             and shingles_of is not None
-            and ((jac := jaccard(shingles_of[i], pos_sh)) >= cfg.near_duplicate)
+            and ((jac := jaccard(shingles_of[i], pos_sh)) >= near)
         ):
             rule, extra = "near_duplicate", {"jaccard": round(jac, 4)}
-        elif cfg.exclude_same_doc and doc_of[i] == doc_of[positive]:
+        elif same_doc and doc_of[i] == doc_of[positive]:
             rule = "same_document"
         elif absolute is not None and s > absolute:
             rule = "above_max_score"
@@ -112,7 +115,7 @@ def screen(
             rule = "above_margin_ceiling"
         if rule is not None:
             dropped.append({"index": i, "score": s, "rank": rank, "rule": rule} | extra)
-        elif rank >= cfg.window_start:
+        elif rank >= start:
             eligible.append({"index": i, "score": s, "rank": rank})
     return eligible, dropped
 

@@ -21,6 +21,19 @@ def rank(
     return [[pids[i] for i in row] for row in idx.tolist()], scores
 
 
+def metric_values(
+    q_emb: np.ndarray,
+    p_emb: np.ndarray,
+    pids: list[str],
+    qrels: list[dict[str, int]],
+    metric: str,
+) -> np.ndarray:
+    """``metric`` of each query ranked over the whole corpus, as ``ballast evaluate`` ranks
+    them (ties by passage id); ``qrels`` in the queries' order."""
+    ranked, _ = rank(q_emb, p_emb, pids, parse_metric(metric).k)
+    return compute([metric], ranked, qrels)[metric]
+
+
 def mean_metric(
     q_emb: np.ndarray,
     p_emb: np.ndarray,
@@ -28,10 +41,8 @@ def mean_metric(
     qrels: list[dict[str, int]],
     metric: str,
 ) -> float:
-    """The mean ``metric`` of the queries ranked over the whole corpus, as ``ballast evaluate``
-    ranks them (ties by passage id); ``qrels`` in the queries' order."""
-    ranked, _ = rank(q_emb, p_emb, pids, parse_metric(metric).k)
-    return float(compute([metric], ranked, qrels)[metric].mean())
+    """The mean of ``metric_values``."""
+    return float(metric_values(q_emb, p_emb, pids, qrels, metric).mean())
 
 
 def truncate(emb: np.ndarray, dim: int) -> np.ndarray:

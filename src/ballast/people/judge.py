@@ -84,6 +84,11 @@ class JudgementBook:
         self.qrels.get(qid, {}).pop(pid, None)
         self._save()
 
+    def replace(self, qrels: dict[str, dict[str, int]]) -> None:
+        """Every grade at once (a filled worksheet), saved."""
+        self.qrels = qrels
+        self._save()
+
     def _save(self) -> None:
         write_text_atomic(self.path, format_qrels({q: v for q, v in self.qrels.items() if v}))
 

@@ -23,7 +23,7 @@ from typing import Any
 
 from ballast.core.errors import InputError
 from ballast.core.text import collapse, sha256_bytes
-from ballast.io.files import read_jsonl, read_text, write_json, write_text_atomic
+from ballast.io.files import read_jsonl, read_text, write_json, write_jsonl
 
 SHARES = (("train", 0.45), ("test", 0.45), ("dev", 0.10))
 MIN_WORDS = 3
@@ -92,10 +92,14 @@ def problem(text: str, passage: str, others: dict[str, str]) -> str | None:
             f"a copy of the passage ({share:.0%} of its word 3-grams are the passage's); ask in "
             "your own words"
         )
-    norm = " ".join(w.lower() for w in words)
-    if norm in others:
-        return f"a duplicate of question {others[norm]}"
+    if same_as(text) in others:
+        return f"a duplicate of question {others[same_as(text)]}"
     return None
+
+
+def same_as(text: str) -> str:
+    """The form two questions are compared in: one line, single spaces, lower case."""
+    return collapse(text).lower()
 
 
 def question_id(passage_id: str) -> str:
@@ -131,7 +135,7 @@ class QuestionBook:
         return [d for d in self.drafts if d.passage_id not in done]
 
     def others(self) -> dict[str, str]:
-        return {" ".join(collapse(r["text"]).lower().split()): r["id"] for r in self.rows}
+        return {same_as(r["text"]): r["id"] for r in self.rows}
 
     def answer(self, draft: Draft, text: str) -> str | None:
         """Keep the question (and save), or return why it cannot be kept."""
@@ -166,9 +170,17 @@ class QuestionBook:
         self._save()
         return next((d for d in self.drafts if d.passage_id == pid), None)
 
+    def add(self, rows: list[dict[str, Any]]) -> int:
+        """Add questions read from a worksheet (those about a passage not yet answered), and
+        save; returns how many were added."""
+        have = {r["passage_id"] for r in self.rows}
+        new = [r for r in rows if r["passage_id"] not in have]
+        self.rows += new
+        self._save()
+        return len(new)
+
     def _save(self) -> None:
-        write_text_atomic(self.path, "".join(json.dumps(r, ensure_ascii=False) + "\n"
-                                             for r in self.rows))  # fmt: skip
+        write_jsonl(self.path, self.rows)
         write_json(self.progress_path, {"skipped": self.skipped})
 
 
@@ -216,7 +228,7 @@ def read_worksheet(
         if any(x["id"] == qid for x in rows):
             raise InputError(f"passage {pid!r} has a question already (one a passage)",
                              path=path, line=line, field="passage_id")  # fmt: skip
-        others[" ".join(collapse(text).lower().split())] = qid
+        others[same_as(text)] = qid
         rows.append({"id": qid, "text": collapse(text), "passage_id": pid,
                      "author": author, "written_at": stamp})  # fmt: skip
     return rows, empty

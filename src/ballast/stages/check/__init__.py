@@ -25,7 +25,7 @@ def check(run: Run) -> dict[str, Any]:
     cfg = run.cfg.gate
     splits = run.splits()
     counts = {s: len(splits["queries"].get(s, [])) for s in cfg.splits if s != "guard"}
-    problems = count_problems(counts, cfg, len(splits["documents"].get("test", [])))
+    problems = count_problems(splits, cfg)
     result: dict[str, Any] = {
         "min_queries": cfg.min_queries,
         "alpha": cfg.alpha,
@@ -54,9 +54,8 @@ def _detectable(run: Run, counts: dict[str, int]) -> dict[str, dict[str, float]]
     deviation, and the minimum detectable gain."""
     import numpy as np
 
-    from ballast.core.metrics import compute, parse_metric
     from ballast.core.records import qrels_for
-    from ballast.core.scoring import rank
+    from ballast.core.scoring import metric_values
     from ballast.core.stats import min_detectable_effect
     from ballast.models.encode import encode_cached
 
@@ -79,8 +78,7 @@ def _detectable(run: Run, counts: dict[str, int]) -> dict[str, dict[str, float]]
             model, run.base_fp, [by_qid[q]["text"] for q in qids], cache,
             batch_size=bs, label=f"encoding {split} queries (base)", progress=run.progress,
         )  # fmt: skip
-        ranked, _ = rank(q_emb, p_emb, pids, parse_metric(cfg.primary_metric).k)
-        values = compute([cfg.primary_metric], ranked, [qrels[q] for q in qids])[cfg.primary_metric]
+        values = metric_values(q_emb, p_emb, pids, [qrels[q] for q in qids], cfg.primary_metric)
         sd = float(np.std(values, ddof=1)) if len(values) > 1 else 0.0
         out[split] = {
             "base_mean": round(float(np.mean(values)), 6),

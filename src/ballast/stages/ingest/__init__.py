@@ -27,7 +27,7 @@ def ingest(run: Run) -> dict[str, Any]:
 STAGE = Stage(
     "ingest",
     ingest,
-    keys=("ingest", "base_model"),
+    keys=("ingest",),
     outputs=("passages.jsonl",),
     external=lambda run: {"docs": file_fingerprint(run.cfg.ingest.docs)},
     base_model=True,  # its tokenizer cuts the passages

@@ -44,9 +44,7 @@ def _preflight(run: Run, splits: dict) -> None:
     (`ballast train` run alone gets the check stage's count check too)."""
     from ballast.core.gate import count_problems
 
-    gated = [s for s in run.cfg.gate.splits if s != "guard"]
-    counts = {s: len(splits["queries"].get(s, [])) for s in gated}
-    problems = count_problems(counts, run.cfg.gate, len(splits["documents"].get("test", [])))
+    problems = count_problems(splits, run.cfg.gate)
     if problems:
         raise StageError("pre-flight: " + "; ".join(problems))
 
@@ -291,7 +289,6 @@ STAGE = Stage(
     keys=(
         "train",
         "seed",
-        "base_model",
         "mine.negatives",
         "evaluate.batch_size",
         "gate.primary_metric",  # the metric that picks the best dev checkpoint
