@@ -24,6 +24,7 @@ SECTION = {
     "synth": {"synth", "export"},
     "split": {"split"},
     "mine": {"mine", "export"},
+    "teach": {"teach", "train", "export"},
     "train": {"train", "export"},
     "evaluate": {"evaluate"},
     "guard": {"evaluate", "report"},
@@ -33,17 +34,17 @@ SECTION = {
 # keys read outside their own section, or top-level keys
 KEY = {
     "name": {"report", "export"},
-    "seed": {"synth", "split", "mine", "train", "evaluate", "export"},
+    "seed": {"synth", "split", "mine", "teach", "train", "evaluate", "export"},
     "run_dir": set(),  # where the run lives, not what it computes
-    "base_model": {"ingest", "check", "mine", "train", "evaluate", "export"},
+    "base_model": {"ingest", "check", "mine", "teach", "train", "evaluate", "export"},
     "mine.negatives": {"mine", "train", "export"},
     "synth.judge_generators": {"synth", "split", "export"},  # split sets their queries aside
-    "train.max_seq_length": {"synth", "check", "mine", "train", "evaluate", "export"},
+    "train.max_seq_length": {"synth", "check", "mine", "teach", "train", "evaluate", "export"},
     "train.matryoshka_dims": {"train", "evaluate", "export"},
-    "evaluate.batch_size": {"synth", "check", "mine", "train", "evaluate", "export"},
+    "evaluate.batch_size": {"synth", "check", "mine", "teach", "train", "evaluate", "export"},
     "evaluate.encode_devices": {"mine", "evaluate"},
     # train keeps the best dev checkpoint by it; check estimates the detectable gain in it
-    "gate.primary_metric": {"check", "train", "gate", "export"},
+    "gate.primary_metric": {"check", "teach", "train", "gate", "export"},
     "gate.splits": {"check", "train", "gate", "export"},  # export measures int8 on a gated split
     "gate.min_queries": {"check", "train", "gate"},  # the pre-flight count check
     "gate.alpha": {"check", "gate"},  # the detectable gain is computed at the gate's level
@@ -108,7 +109,7 @@ def test_the_two_gaps_of_the_hand_kept_list_are_closed() -> None:
     # train picks its best dev checkpoint by the gate's metric: changing it retrains and
     # everything after; the guard's settings reach evaluate (and the report)
     assert downstream(changed_stages("gate.primary_metric")) == {
-        "check", "train", "evaluate", "gate", "report", "export"
+        "check", "teach", "train", "evaluate", "gate", "report", "export"
     }
     assert downstream(changed_stages("guard.qrels")) == {"evaluate", "gate", "report", "export"}
     assert downstream(changed_stages("split.dev_fraction")) == set(ORDER) - {"ingest", "synth"}

@@ -1,4 +1,4 @@
-"""ballast.stages.mine.rescore and the mine stage's second opinion, on tiny randomly initialised
+"""ballast.models.rescore and the mine stage's second opinion, on tiny randomly initialised
 models built
 here (no cross-encoder or small causal LM ships in any package): the plumbing, not the quality.
 Query likelihood follows Sachan et al. 2022 (UPR): the mean log-probability of the query tokens
@@ -67,7 +67,7 @@ def causal_lm(tmp_path_factory) -> Path:
 
 
 def test_cross_encoder_scores_probabilities_independent_of_batching(cross_encoder: Path) -> None:
-    from ballast.stages.mine.rescore import load_rescorer
+    from ballast.models.rescore import load_rescorer
 
     r = load_rescorer("cross-encoder", cross_encoder)
     together = r.score(PAIRS)
@@ -80,7 +80,7 @@ def test_cross_encoder_scores_probabilities_independent_of_batching(cross_encode
 def test_cross_encoder_with_two_outputs_is_refused(tmp_path: Path) -> None:
     from transformers import BertConfig, BertForSequenceClassification
 
-    from ballast.stages.mine.rescore import CrossEncoderRescorer
+    from ballast.models.rescore import CrossEncoderRescorer
 
     tok = _tokenizer()
     cfg = BertConfig(
@@ -94,7 +94,7 @@ def test_cross_encoder_with_two_outputs_is_refused(tmp_path: Path) -> None:
 
 
 def test_folders_that_are_unsafe_or_missing_are_refused(tmp_path: Path) -> None:
-    from ballast.stages.mine.rescore import load_rescorer
+    from ballast.models.rescore import load_rescorer
 
     with pytest.raises(InputError, match="not found"):
         load_rescorer("cross-encoder", tmp_path / "nope")
@@ -112,7 +112,7 @@ def test_folders_that_are_unsafe_or_missing_are_refused(tmp_path: Path) -> None:
 
 
 def test_a_gguf_file_is_taken_for_query_likelihood(tmp_path: Path) -> None:
-    from ballast.stages.mine.rescore import _check_folder
+    from ballast.models.rescore import _check_folder
 
     (tmp_path / "m.gguf").write_bytes(b"GGUF")
     assert _check_folder(tmp_path, gguf_ok=True) == tmp_path / "m.gguf"
@@ -124,7 +124,7 @@ def test_a_gguf_file_is_taken_for_query_likelihood(tmp_path: Path) -> None:
 
 
 def test_a_language_model_spec_may_name_the_gguf_file(tmp_path: Path) -> None:
-    from ballast.stages.mine.rescore import locate_language_model
+    from ballast.models.rescore import locate_language_model
 
     (tmp_path / "m.gguf").write_bytes(b"GGUF")
     assert locate_language_model(str(tmp_path / "m.gguf")) == (tmp_path, tmp_path / "m.gguf")
@@ -135,7 +135,7 @@ def test_a_language_model_spec_may_name_the_gguf_file(tmp_path: Path) -> None:
 
 
 def test_query_likelihood_equals_the_unpadded_sum(causal_lm: Path) -> None:
-    from ballast.stages.mine.rescore import QueryLikelihoodRescorer
+    from ballast.models.rescore import QueryLikelihoodRescorer
 
     r = QueryLikelihoodRescorer(causal_lm, max_passage_tokens=64)
     got = r.score(PAIRS)  # batched, left-padded, longest first
@@ -151,7 +151,7 @@ def test_query_likelihood_equals_the_unpadded_sum(causal_lm: Path) -> None:
 
 
 def test_query_likelihood_holds_few_logits_at_once(causal_lm: Path) -> None:
-    from ballast.stages.mine.rescore import QueryLikelihoodRescorer
+    from ballast.models.rescore import QueryLikelihoodRescorer
 
     small = QueryLikelihoodRescorer(causal_lm, logits_budget=1)  # one pair a batch
     big = QueryLikelihoodRescorer(causal_lm)
@@ -166,7 +166,7 @@ def test_second_opinion_drops_what_it_rates_high_and_reports_cost(
     kind: str, cross_encoder: Path, causal_lm: Path
 ) -> None:
     from ballast.core.mining import second_opinion
-    from ballast.stages.mine.rescore import Cost, Timed, load_rescorer
+    from ballast.models.rescore import Cost, Timed, load_rescorer
 
     path = cross_encoder if kind == "cross-encoder" else causal_lm
     cost = Cost(kind)

@@ -152,6 +152,7 @@ for _name, _doc in [
     ("check", "Pre-flight: can each gated split decide (enough queries; the smallest gain it "
      "can detect)? check.json; exit 2 before any training if not."),
     ("mine", "Mine hard negatives for the training pairs with the base model (negatives.jsonl)."),
+    ("teach", "Check a teacher on dev and score the training candidates with it (labels.jsonl)."),
     ("train", "Fine-tune the base model on the training pairs (model/)."),
     ("gate", "Decide whether the tuned model ships (gate.json); exit 1 if it does not."),
     ("report", "Write report.html (charts, examples, verdict) and report.md for the run."),

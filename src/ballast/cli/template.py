@@ -88,6 +88,23 @@ rescorer_threshold = 0.95  # drop a candidate the re-scorer rates at least this 
 search = "auto"            # "exact" (chunked matrix products), "faiss", or "auto": by size
 faiss_above = 200000       # with "auto", FAISS from this many training passages on
 
+[teach]
+# Teacher labels (docs/teaching.md): a teacher scores each training query's candidates and the
+# model learns its preferences. The teacher check first reranks the base model's top results on
+# dev with it; a teacher that does not beat the base model there is refused, and training keeps
+# the contrastive loss.
+teacher = "none"           # "hybrid" (BM25 fused with the base model: needs nothing more),
+                           # "bi-encoder", "cross-encoder" (your local folder in model), or
+                           # "query-likelihood" (a local language model; slow)
+model = ""                 # the teacher's local folder; "packaged:gemma-3-270m" for
+                           # query-likelihood (Gemma Terms of Use)
+candidates = 4             # per training query: its positive and the base model's next best
+loss = "listwise_kl"       # or "margin_mse" (score margins, Hofstaetter et al. 2020)
+temperature = 1.0          # the teacher's softmax temperature over its standardised scores
+contrastive_weight = 0.0   # > 0 adds the in-batch contrastive loss with this weight
+check = true               # the teacher check on dev (real questions when there are some)
+check_depth = 20           # how many of the base model's results the check reranks
+
 [train]
 epochs = 1
 batch_size = 32

@@ -29,6 +29,7 @@ from ballast.config.sections import (
     MineConfig,
     SplitConfig,
     SynthConfig,
+    TeachConfig,
     TrainConfig,
     _fail,
     _range,
@@ -46,6 +47,7 @@ class Config:
     synth: SynthConfig = field(default_factory=SynthConfig)
     split: SplitConfig = field(default_factory=SplitConfig)
     mine: MineConfig = field(default_factory=MineConfig)
+    teach: TeachConfig = field(default_factory=TeachConfig)
     train: TrainConfig = field(default_factory=TrainConfig)
     evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
     guard: GuardConfig = field(default_factory=GuardConfig)
@@ -76,6 +78,11 @@ class Config:
                 "judge",
                 "synth.judge_generators set when the 'judge' split is evaluated",
             )
+        if self.teach.teacher != "none" and self.train.mode == "adapter":
+            _fail("train.mode", "adapter", "'full' or 'lora' when teach.teacher is set")
+        if self.teach.teacher != "none" and self.train.matryoshka_dims:
+            _fail("train.matryoshka_dims", list(self.train.matryoshka_dims),
+                  "[] when teach.teacher is set (the distillation losses are not nested)")  # fmt: skip
         human = [s for s in self.evaluate.splits if s.startswith("human")]
         if human and not self.synth.questions:
             _fail(
@@ -112,6 +119,7 @@ SECTIONS: dict[str, type] = {
     "synth": SynthConfig,
     "split": SplitConfig,
     "mine": MineConfig,
+    "teach": TeachConfig,
     "train": TrainConfig,
     "evaluate": EvaluateConfig,
     "guard": GuardConfig,
@@ -127,6 +135,7 @@ PATH_KEYS = {
     ("synth", "prompts"),
     ("synth", "llm_model"),
     ("mine", "rescorer_model"),
+    ("teach", "model"),
     ("", "run_dir"),
     ("", "base_model"),
     ("export", "dir"),
@@ -296,6 +305,7 @@ __all__ = [
     "MineConfig",
     "SplitConfig",
     "SynthConfig",
+    "TeachConfig",
     "TrainConfig",
     "build_config",
     "load_config",

@@ -255,6 +255,46 @@ class MineConfig:
         _range("mine.faiss_above", self.faiss_above, 1, 10**9)
 
 
+TEACHERS = ("none", "hybrid", "bi-encoder", "cross-encoder", "query-likelihood")
+
+
+@dataclass(frozen=True)
+class TeachConfig:
+    """Teacher labels (docs/teaching.md): each training query's candidates (its positive and the
+    base model's best other passages of the training documents) scored by a teacher, and the
+    student trained to match those scores. The teacher check reranks the base model's top
+    ``check_depth`` on the dev queries with the teacher first; a teacher that does not beat the
+    base model there is refused and training keeps the contrastive loss."""
+
+    teacher: str = "none"
+    model: str = ""  # a local folder (bi-encoder, cross-encoder) or a language model spec
+    candidates: int = 4  # the positive and candidates - 1 others per query
+    loss: str = "listwise_kl"  # or "margin_mse" (Hofstätter et al. 2020)
+    temperature: float = 1.0  # the teacher's softmax temperature over standardised scores
+    contrastive_weight: float = 0.0  # weight of the in-batch contrastive loss kept beside
+    check: bool = True
+    check_depth: int = 20
+
+    def __post_init__(self) -> None:
+        if self.teacher not in TEACHERS:
+            _fail("teach.teacher", self.teacher, " ".join(f"'{t}'" for t in TEACHERS))
+        needs_model = self.teacher in ("bi-encoder", "cross-encoder", "query-likelihood")
+        if needs_model and not self.model:
+            _fail("teach.model", "", f"a local model folder when teach.teacher = '{self.teacher}'")
+        if self.model and not needs_model:
+            _fail(
+                "teach.teacher",
+                self.teacher,
+                "'bi-encoder', 'cross-encoder' or 'query-likelihood' when teach.model is set",
+            )
+        _range("teach.candidates", self.candidates, 2, 64)
+        if self.loss not in ("listwise_kl", "margin_mse"):
+            _fail("teach.loss", self.loss, "'listwise_kl' or 'margin_mse'")
+        _range("teach.temperature", self.temperature, 0.0, 100.0, lo_open=True)
+        _range("teach.contrastive_weight", self.contrastive_weight, 0.0, 100.0)
+        _range("teach.check_depth", self.check_depth, 2, 1000)
+
+
 @dataclass(frozen=True)
 class TrainConfig:
     epochs: int = 1

@@ -16,6 +16,7 @@ from ballast.stages import mine as _mine
 from ballast.stages import report as _report
 from ballast.stages import split as _split
 from ballast.stages import synth as _synth
+from ballast.stages import teach as _teach
 from ballast.stages import train as _train
 from ballast.stages.base import Run, Stage
 
@@ -27,6 +28,7 @@ STAGES: dict[str, Stage] = {
         _split.STAGE,
         _check.STAGE,
         _mine.STAGE,
+        _teach.STAGE,
         _train.STAGE,
         _evaluate.STAGE,
         _gate.STAGE,

@@ -20,7 +20,7 @@ from ballast.core.progress import SILENT, Progress
 from ballast.io.files import read_jsonl
 
 # One salt a stage, so each stage draws from its own seeded generator.
-SALT = {"synth": 1, "split": 2, "mine": 3, "train": 4, "evaluate": 5}
+SALT = {"synth": 1, "split": 2, "mine": 3, "train": 4, "evaluate": 5, "teach": 6}
 
 
 @dataclass

@@ -89,6 +89,10 @@ def export(run: Run) -> dict[str, Any]:
             # the base/tuned interpolation kept by the safety net (None: the tuned model as
             # trained)
             "mix": train_stats.get("mix"),
+            # teacher labels (None: no teacher set); "used" is false when the check refused it
+            "teacher": train_stats.get("teacher") and (
+                train_stats["teacher"] | {"config": section_dict(run.cfg.teach)}
+            ),
         },
         "data_sha256": data,
         "metrics": gated,
@@ -152,6 +156,7 @@ STAGE = Stage(
         "train",
         "mine",
         "synth",
+        "teach",
         "evaluate.batch_size",  # the int8 measurement
         "gate.primary_metric",
         "gate.splits",

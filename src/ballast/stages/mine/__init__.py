@@ -164,7 +164,7 @@ def _second_opinion(
     run: Run, qs: list[dict], pos_texts: list[str], tp: list[dict], orders: list[list[dict]]
 ) -> tuple[list[list[dict]], list[list[dict]], dict[str, Any]]:
     from ballast.core.mining import second_opinion
-    from ballast.stages.mine.rescore import Cost, Timed, load_rescorer
+    from ballast.models.rescore import Cost, Timed, load_rescorer
 
     cfg = run.cfg.mine
     started = time.perf_counter()

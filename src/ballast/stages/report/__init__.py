@@ -12,7 +12,7 @@ from typing import Any
 from ballast.io.files import read_jsonl, read_text, write_text_atomic
 from ballast.stages.base import Run, Stage, guard_files
 
-SUMMARY_STAGES = ("ingest", "synth", "split", "mine", "train")
+SUMMARY_STAGES = ("ingest", "synth", "split", "mine", "teach", "train")
 
 
 def _json(path: Path) -> Any:

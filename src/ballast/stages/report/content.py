@@ -246,7 +246,7 @@ def _flatten(prefix: str, obj: Any) -> list[tuple[str, str]]:
 def _counts(inp: ReportInputs) -> list[tuple[str, list[tuple[str, str]]]]:
     """Synthesis, filtering and mining counts, flattened from the stages' summaries."""
     out = []
-    for stage in ("ingest", "synth", "split", "mine", "train"):
+    for stage in ("ingest", "synth", "split", "mine", "teach", "train"):
         summary = inp.stages.get(stage)
         if summary:
             rows = _flatten("", {k: v for k, v in summary.items() if k != "loss_history"})

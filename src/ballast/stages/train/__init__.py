@@ -77,15 +77,23 @@ def train(run: Run) -> dict[str, Any]:
             {"anchor": q["text"], "positive": training_positive(q, pos), "negatives": neg}
         )
         indexed.append(pos["text"])
+    taught = _teacher_labels(run, examples, splits["queries"]["train"], by_pid)
     if len(examples) < 2:
         raise StageError(
             f"{len(examples)} training pair(s); need at least 2 — add documents "
             "or lower split.test_fraction"
         )
-    run.progress.info(
-        f"train: {len(examples)} pairs, {want} hard negative(s) each, "
-        f"{run.cfg.train.epochs} epoch(s)"
-    )
+    if taught:
+        run.progress.info(
+            f"train: {len(examples)} queries, each with {taught} candidates scored by the "
+            f"{run.cfg.teach.teacher} teacher ({run.cfg.teach.loss}), "
+            f"{run.cfg.train.epochs} epoch(s)"
+        )
+    else:
+        run.progress.info(
+            f"train: {len(examples)} pairs, {want} hard negative(s) each, "
+            f"{run.cfg.train.epochs} epoch(s)"
+        )
     work = run.path(".train-work")
     from ballast.stages.train.full import process_rank
 
@@ -98,6 +106,7 @@ def train(run: Run) -> dict[str, Any]:
     fit = functools.partial(
         train_model, run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
         work_dir=work, dev=dev, progress=run.progress,
+        teach=run.cfg.teach if taught else None,
     )  # fmt: skip
     rank, world = process_rank()
     if rank != 0:  # torchrun: a helper process trains its share and writes nothing
@@ -125,9 +134,53 @@ def train(run: Run) -> dict[str, Any]:
 
     shutil.rmtree(work, ignore_errors=True)
     stats["padded_negatives"] = padded
+    stats["teacher"] = _teacher_summary(run, taught)
     stats["processes"] = world
     write_json(run.path("train.json"), stats)
     return {k: v for k, v in stats.items() if k != "loss_history"}
+
+
+def _teacher_labels(run: Run, examples: list[dict], qids: list[str], by_pid: dict) -> int:
+    """With labels from the teach stage, give each example its candidates (the training
+    positive first, then the other passages the teacher scored) and the teacher's standardised
+    scores; returns the candidates per example (0: no labels, the contrastive loss stays).
+    Every example gets the same number (the fewest any query has), as the loss needs."""
+    import json
+
+    if run.cfg.teach.teacher == "none":
+        return 0
+    info = json.loads(run.need("teacher.json", "teach").read_text("utf-8"))
+    if info.get("refused") or info.get("teacher") != run.cfg.teach.teacher:
+        return 0
+    from ballast.core.teaching import standardise
+
+    labels = {
+        r["query_id"]: r["candidates"]
+        for _, r in read_jsonl(run.need("labels.jsonl", "teach"), allow_empty=True)
+    }
+    missing = [q for q in qids if q not in labels]
+    if missing:
+        raise StageError(
+            f"labels.jsonl has no teacher scores for {len(missing)} training queries "
+            f"(e.g. {missing[0]}); run `ballast teach` again"
+        )
+    n = min(len(labels[q]) for q in qids)
+    for e, q in zip(examples, qids, strict=True):
+        cands = labels[q][:n]
+        e["candidates"] = [by_pid[c["id"]]["text"] for c in cands[1:]]
+        e["labels"] = standardise([c["score"] for c in cands]).round(6).tolist()
+    return n
+
+
+def _teacher_summary(run: Run, taught: int) -> dict[str, Any] | None:
+    t = run.cfg.teach
+    if t.teacher == "none":
+        return None
+    if not taught:
+        return {"teacher": t.teacher, "used": False,
+                "why": "refused by the teacher check (teacher.json)"}  # fmt: skip
+    return {"teacher": t.teacher, "used": True, "candidates": taught, "loss": t.loss,
+            "temperature": t.temperature, "contrastive_weight": t.contrastive_weight}  # fmt: skip
 
 
 def _safety_net(
@@ -294,8 +347,12 @@ STAGE = Stage(
         "gate.primary_metric",  # the metric that picks the best dev checkpoint
         "gate.splits",  # the pre-flight count check
         "gate.min_queries",
+        "teach",  # the distillation loss and its settings
     ),
-    inputs=("passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl"),
+    inputs=(
+        "passages.jsonl", "queries.jsonl", "splits.json", "negatives.jsonl",
+        "labels.jsonl", "teacher.json",
+    ),  # fmt: skip
     outputs=("model", "train.json"),
     base_model=True,
 )

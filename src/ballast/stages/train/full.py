@@ -14,9 +14,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from ballast.config import TrainConfig
+from ballast.config import TeachConfig, TrainConfig
 from ballast.core.progress import SILENT, Progress
 from ballast.models.loading import load_encoder
+from ballast.stages.train.distill import distillation_loss
 
 
 def process_rank() -> tuple[int, int]:
@@ -193,8 +194,11 @@ def train_model(
     work_dir: Path,
     dev: DevSet | None = None,
     progress: Progress = SILENT,
+    teach: TeachConfig | None = None,
 ) -> dict[str, Any]:
     """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``.
+    With ``teach``, each example's ``candidates`` and ``labels`` (the teacher's standardised
+    scores, positive first) train a distillation loss instead (stages/train/distill.py).
 
     With ``cfg.eval_steps`` and a ``dev`` set, the dev metric is scored every ``eval_steps``
     steps, the best-scoring checkpoint is the one saved, and with ``early_stopping_patience``
@@ -224,13 +228,16 @@ def train_model(
     model.model_card_data.widget = [{"text": ""}]
     if cfg.mode == "lora":
         _add_lora(model, cfg)
-    n_neg = min((len(e["negatives"]) for e in examples), default=0)
-    columns: dict[str, list[str]] = {
+    others = "candidates" if teach is not None else "negatives"
+    n_neg = min((len(e[others]) for e in examples), default=0)
+    columns: dict[str, list[Any]] = {
         "anchor": [e["anchor"] for e in examples],
         "positive": [e["positive"] for e in examples],
     }
     for j in range(n_neg):
-        columns[f"negative_{j + 1}"] = [e["negatives"][j] for e in examples]
+        columns[f"negative_{j + 1}"] = [e[others][j] for e in examples]
+    if teach is not None:  # the teacher's standardised scores of positive and candidates
+        columns["label"] = [e["labels"] for e in examples]
     dataset = Dataset.from_dict(columns)
     steps_per_epoch = -(-len(examples) // cfg.batch_size)
     save_steps = cfg.checkpoint_steps or cfg.eval_steps
@@ -251,7 +258,11 @@ def train_model(
         warmup_steps=cfg.warmup_ratio,
         seed=seed,
         data_seed=seed,
-        batch_sampler="no_duplicates",
+        # in-batch negatives must not be copies of a positive; a distillation loss without
+        # the contrastive term compares each query only with its own candidates
+        batch_sampler="no_duplicates"
+        if teach is None or teach.contrastive_weight > 0
+        else "batch_sampler",
         save_strategy="steps" if save_steps else "no",
         save_steps=save_steps or 500,
         save_total_limit=2,
@@ -276,7 +287,7 @@ def train_model(
         model=model,
         args=args,
         train_dataset=dataset,
-        loss=_loss(model, cfg),
+        loss=_loss(model, cfg) if teach is None else distillation_loss(model, teach),
         evaluator=_dev_evaluator(dev, dev_history) if cfg.eval_steps and dev else None,
         callbacks=callbacks,
     )
