@@ -15,7 +15,8 @@ SRC = Path(__file__).resolve().parents[2] / "src" / "ballast"
 # Lowest first. A module may import its own layer or any layer below it.
 LAYERS = ["core", "config", "io", "models", "stages", "bundle", "people", "pipeline", "cli"]
 STAGE_NAMES = {
-    "ingest", "synth", "split", "check", "mine", "teach", "train", "evaluate", "gate", "report", "export"
+    "ingest", "synth", "split", "check", "mine", "teach", "train", "evaluate", "gate", "report",
+    "export",
 }
 MAX_LINES = 600  # ~400 for most modules; the few larger ones are one concept each
 

@@ -81,8 +81,11 @@ class Config:
         if self.teach.teacher != "none" and self.train.mode == "adapter":
             _fail("train.mode", "adapter", "'full' or 'lora' when teach.teacher is set")
         if self.teach.teacher != "none" and self.train.matryoshka_dims:
-            _fail("train.matryoshka_dims", list(self.train.matryoshka_dims),
-                  "[] when teach.teacher is set (the distillation losses are not nested)")  # fmt: skip
+            _fail(
+                "train.matryoshka_dims",
+                list(self.train.matryoshka_dims),
+                "[] when teach.teacher is set (the distillation losses are not nested)",
+            )
         human = [s for s in self.evaluate.splits if s.startswith("human")]
         if human and not self.synth.questions:
             _fail(

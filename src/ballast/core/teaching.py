@@ -66,4 +66,5 @@ def standardise(scores: Sequence[float]) -> np.ndarray:
 def rerank(base_ids: Sequence[str], teacher: Sequence[float]) -> list[str]:
     """The base model's list reordered by the teacher's scores, ties by passage id (as every
     ranking in ballast)."""
-    return [pid for _, pid in sorted(zip(teacher, base_ids, strict=True), key=lambda x: (-x[0], x[1]))]
+    pairs = sorted(zip(teacher, base_ids, strict=True), key=lambda x: (-x[0], x[1]))
+    return [pid for _, pid in pairs]

@@ -128,8 +128,10 @@ def teach(run: Run) -> dict[str, Any]:
                     f"({check['metric']}, {check['difference']:+.4f} "
                     f"[{check['ci'][0]:+.4f}, {check['ci'][1]:+.4f}], {split})")  # fmt: skip
             if split == "dev":
-                line += ("; synthetic dev queries are made from passages' own words and "
-                         "flatter a lexical teacher: real questions judge a teacher better")  # fmt: skip
+                line += (
+                    "; synthetic dev queries are made from passages' own words and flatter a "
+                    "lexical teacher: real questions judge a teacher better"
+                )
             run.progress.info(f"teach: {line}")
             if check["difference"] <= 0:
                 refusal = (f"the {cfg.teacher} teacher does not beat the base model on the "

@@ -85,8 +85,10 @@ class BiEncoderTeacher:
         pos = {i: j for j, i in enumerate(used)}
 
         def enc(texts: list[str], label: str) -> np.ndarray:
-            return encode_cached(self.model, self.fp, texts, self.cache,
-                                 batch_size=self.batch_size, label=label, progress=progress)  # fmt: skip
+            return encode_cached(
+                self.model, self.fp, texts, self.cache,
+                batch_size=self.batch_size, label=label, progress=progress,
+            )  # fmt: skip
 
         p = enc([self.passages[i] for i in used], "encoding candidates (teacher)")
         q = enc(list(queries), "encoding queries (teacher)")
@@ -114,7 +116,9 @@ class PairTeacher:
     def score(
         self, queries: Sequence[str], candidates: Sequence[Sequence[int]], progress: Progress
     ) -> list[np.ndarray]:
-        pairs = [(q, self.passages[i]) for q, c in zip(queries, candidates, strict=True) for i in c]
+        pairs = [
+            (q, self.passages[i]) for q, c in zip(queries, candidates, strict=True) for i in c
+        ]
         keys = [PairCache.key(q, p) for q, p in pairs]
         missing = sorted({k: n for n, k in enumerate(keys) if k not in self.cache}.values())
         if len(missing) < len(keys):

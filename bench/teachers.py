@@ -1,0 +1,147 @@
+"""Teacher labels against the contrastive loss, side by side on one collection.
+
+    python -m bench.teachers OUT (--demo | --faq) [--llm] [--set KEY=VALUE ...]
+
+``--demo``: the bundled demo (configs/demo.toml); ``--faq``: the Debian FAQ pool of
+bench/faq_gain.py with 10% of the documents as dev (the teacher check needs dev questions). Each
+recipe is one ballast run; the first run's folder is copied for the others, so ingest, synth,
+split and mine are not done twice (the stages' fingerprints skip them). ``--llm`` adds the
+packaged Gemma-3-270M as a query-likelihood teacher (slow; Gemma Terms of Use).
+
+Prints, per recipe: the teacher check (dev), then tuned-vs-base nDCG@10 with the 95% interval
+on every split, the verdict, and the minutes. Settings are to be chosen on the dev rows only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import shutil
+import sys
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+
+RECIPES = {
+    "contrastive": ["teach.teacher=none"],
+    "hybrid, listwise KL": ["teach.teacher=hybrid"],
+    "hybrid, MarginMSE": ["teach.teacher=hybrid", "teach.loss=margin_mse"],
+    "hybrid, KL + contrastive": ["teach.teacher=hybrid", "teach.contrastive_weight=1.0"],
+}
+LLM = {"query likelihood (Gemma), KL": ["teach.teacher=query-likelihood",
+                                         "teach.model=packaged:gemma-3-270m"]}  # fmt: skip
+
+
+def cpu() -> str:
+    flags = ""
+    try:
+        info = Path("/proc/cpuinfo").read_text("utf-8")
+        model = next((ln.split(":", 1)[1].strip() for ln in info.splitlines()
+                      if ln.startswith("model name")), platform.processor())  # fmt: skip
+        flags = " ".join(f for f in ("avx2", "avx512f", "avx512_bf16", "amx_bf16")
+                         if f" {f}" in info)  # fmt: skip
+    except OSError:
+        model = platform.processor()
+    return f"{model}; flags: {flags or 'none of avx2/avx512'}"
+
+
+def config(args: argparse.Namespace) -> Path:
+    if args.demo:
+        return REPO / "configs" / "demo.toml"
+    from bench import faq_gain, faqdata
+
+    faqdata.build(args.cache)
+    faq = args.cache / "faq"
+    args.out.mkdir(parents=True, exist_ok=True)
+    path = args.out / "faq.toml"
+    text = faq_gain.CONFIG.format(seed=0, docs=faq / "docs", questions=faq / "questions.jsonl")
+    path.write_text(text.replace("dev_fraction = 0.0", "dev_fraction = 0.1"), "utf-8")
+    return path
+
+
+def one(cfg_path: Path, folder: Path, sets: list[str], first: Path | None) -> dict:
+    from ballast.config import load_config
+    from ballast.pipeline import run_all
+    from ballast.stages import Run
+
+    if first is not None and not folder.exists():
+        shutil.copytree(first, folder, ignore=shutil.ignore_patterns(
+            "model", "bundle", ".train-work", ".lock", "*.tmp"))  # fmt: skip
+    cfg = load_config(cfg_path, [*sets, f"run_dir={folder}"])
+    started = time.perf_counter()
+    stages = run_all(Run(cfg))
+    seconds = time.perf_counter() - started
+    read = lambda name: json.loads((folder / name).read_text("utf-8"))  # noqa: E731
+    splits = {}
+    for split, info in read("metrics.json")["splits"].items():
+        c = info["comparisons"]["tuned_vs_base"]["ndcg@10"]
+        splits[split] = {"n": info["n_queries"], "base": c["mean_a"], "tuned": c["mean_b"],
+                         "gain": c["mean_diff"], "ci": [c["ci_low"], c["ci_high"]]}  # fmt: skip
+    train = read("train.json")
+    return {
+        "sets": sets,
+        "teacher": read("teacher.json"),
+        "splits": splits,
+        "gate": read("gate.json")["summary"],
+        "mix": (train.get("mix") or {}).get("weight"),
+        "train_seconds": train.get("seconds"),
+        "seconds": round(seconds, 1),
+        "ran": [s["stage"] for s in stages if not s.get("skipped")],
+    }
+
+
+def render(rows: dict[str, dict]) -> str:
+    splits = sorted({s for r in rows.values() for s in r["splits"]})
+    lines = [f"machine: {cpu()}", "",
+             "| recipe | teacher check (dev) | " + " | ".join(splits) + " | mix | train s |",
+             "|---|---|" + "---|" * len(splits) + "---|---|"]  # fmt: skip
+    for name, r in rows.items():
+        c = r["teacher"].get("check")
+        check = (f"{c['teacher']:.4f} vs {c['base']:.4f} on {c['queries']} {c['split']}"
+                 + (" (refused)" if r["teacher"].get("refused") else "")) if c else "-"  # fmt: skip
+        cells = []
+        for s in splits:
+            v = r["splits"].get(s)
+            cells.append(f"{v['gain']:+.4f} [{v['ci'][0]:+.4f}, {v['ci'][1]:+.4f}]" if v else "")
+        lines.append(f"| {name} | {check} | " + " | ".join(cells)
+                     + f" | {r['mix']} | {r['train_seconds']} |")  # fmt: skip
+    lines.append("")
+    lines += [f"{name}: {r['gate']} ({r['seconds']} s)" for name, r in rows.items()]
+    n = {s: next(r["splits"][s]["n"] for r in rows.values() if s in r["splits"]) for s in splits}
+    lines.append("queries per split: " + ", ".join(f"{s} {k}" for s, k in n.items()))
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    from bench.faq_gain import default_cache
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("out", type=Path)
+    where = ap.add_mutually_exclusive_group(required=True)
+    where.add_argument("--demo", action="store_true")
+    where.add_argument("--faq", action="store_true")
+    ap.add_argument("--llm", action="store_true")
+    ap.add_argument("--cache", type=Path, default=default_cache())
+    ap.add_argument("--set", dest="sets", action="append", default=[])
+    ap.add_argument("--only", action="append", default=[], help="run only these recipes")
+    args = ap.parse_args(argv)
+    cfg = config(args)
+    recipes = RECIPES | (LLM if args.llm else {})
+    if args.only:
+        recipes = {k: v for k, v in recipes.items() if k in args.only}
+    rows: dict[str, dict] = {}
+    first = None
+    for i, (name, sets) in enumerate(recipes.items()):
+        folder = (args.out / f"r{i}").resolve()
+        rows[name] = one(cfg, folder, [*args.sets, *sets], first)
+        first = first or folder
+        (args.out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
+        sys.stderr.write(render(rows) + "\n\n")
+    print(render(rows))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
