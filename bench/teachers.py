@@ -1,6 +1,7 @@
-"""Teacher labels against the contrastive loss, side by side on one collection.
+"""Training recipes side by side on one collection: teacher labels against the contrastive
+loss (``--recipes teachers``), or the quantity and mix of training data (``--recipes quantity``).
 
-    python -m bench.teachers OUT (--demo | --faq) [--llm] [--set KEY=VALUE ...]
+    python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
 
 ``--demo``: the bundled demo (configs/demo.toml); ``--faq``: the Debian FAQ pool of
 bench/faq_gain.py with 10% of the documents as dev (the teacher check needs dev questions). Each
@@ -29,6 +30,14 @@ RECIPES = {
     "hybrid, listwise KL": ["teach.teacher=hybrid"],
     "hybrid, MarginMSE": ["teach.teacher=hybrid", "teach.loss=margin_mse"],
     "hybrid, KL + contrastive": ["teach.teacher=hybrid", "teach.contrastive_weight=1.0"],
+}
+QUANTITY = {
+    "1 inverse-cloze query a passage": [],
+    "3 inverse-cloze queries a passage": ["synth.ict_per_passage=3"],
+    "inverse cloze + keyword queries": ['synth.generators=["ict", "keywords"]'],
+    "in-batch negatives only": ["mine.negatives=0"],
+    "2 epochs": ["train.epochs=2"],
+    "learning rate 5e-5": ["train.learning_rate=5e-5"],
 }
 LLM = {"query likelihood (Gemma), KL": ["teach.teacher=query-likelihood",
                                          "teach.model=packaged:gemma-3-270m"]}  # fmt: skip
@@ -122,13 +131,15 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
+    ap.add_argument("--recipes", choices=("teachers", "quantity"), default="teachers")
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
     ap.add_argument("--set", dest="sets", action="append", default=[])
     ap.add_argument("--only", action="append", default=[], help="run only these recipes")
     args = ap.parse_args(argv)
     cfg = config(args)
-    recipes = RECIPES | (LLM if args.llm else {})
+    recipes = RECIPES if args.recipes == "teachers" else QUANTITY
+    recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}
     rows: dict[str, dict] = {}

@@ -21,7 +21,7 @@ from tests.runfolder import base_model_dir
 
 pytestmark = pytest.mark.slow
 
-TRAIN = "batch_size = 8\nmax_seq_length = 64\nmix_weights = []"
+TRAIN = "batch_size = 8\nmax_seq_length = 64\nmix_weights = []\nbatching = \"length\""
 
 
 def _project(tmp_path: Path, teach: str) -> Path:
@@ -60,6 +60,9 @@ def test_a_teacher_that_ties_the_base_model_is_refused_and_training_stays_contra
     assert _rows(run.path("labels.jsonl")) == []
     stats = json.loads(run.path("train.json").read_text("utf-8"))
     assert stats["teacher"]["used"] is False and stats["hard_negatives_per_pair"] == 1
+    # batches of similar length compute fewer pad tokens than random ones (same seed)
+    assert stats["batching"] == "length"
+    assert stats["pad_share"]["length"] < stats["pad_share"]["random"]
 
 
 def test_hybrid_labels_and_distillation_training(tmp_path: Path) -> None:

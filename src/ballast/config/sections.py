@@ -329,8 +329,13 @@ class TrainConfig:
     # the safety net: after training, these interpolations of base (0) and tuned (1) weights
     # are scored on the dev queries and the best kept (WiSE-FT); [] = keep the tuned model
     mix_weights: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
+    # "random": batches drawn at random (without duplicate texts); "length": batches of similar
+    # length, so fewer pad tokens are computed (stages/train/batches.py)
+    batching: str = "random"
 
     def __post_init__(self) -> None:
+        if self.batching not in ("random", "length"):
+            _fail("train.batching", self.batching, "'random' or 'length'")
         for w in self.mix_weights:
             _range("train.mix_weights", w, 0.0, 1.0)
         if len(set(self.mix_weights)) != len(self.mix_weights):

@@ -152,6 +152,28 @@ def _loss(model: Any, cfg: TrainConfig) -> Any:
     return loss
 
 
+def _batching(
+    model: Any, columns: dict[str, list[str]], cfg: TrainConfig, *, seed: int, no_duplicates: bool
+) -> tuple[dict[str, float], Any]:
+    """The share of pad tokens of one epoch batched at random and by length (the same seed),
+    and the batch sampler for ``train.batching = "length"`` (None: the trainer's own)."""
+    import numpy as np
+
+    from ballast.stages.train import batches
+
+    lengths = batches.token_lengths(model.tokenizer, columns, cfg.max_seq_length)
+    texts = [set(row) for row in zip(*columns.values(), strict=True)]
+    share = {}
+    for name, by_length in (("random", False), ("length", True)):
+        rng = np.random.default_rng([seed, 0])
+        planned = batches.plan(lengths.sum(axis=1), texts, cfg.batch_size, rng,
+                               no_duplicates=no_duplicates, buckets=by_length)  # fmt: skip
+        share[name] = round(batches.pad_share(planned, lengths), 4)
+    if cfg.batching != "length":
+        return share, None
+    return share, batches.sampler(lengths, texts, no_duplicates=no_duplicates)
+
+
 def _merge_lora(model: Any) -> None:
     inner = model[0]
     inner.model = inner.model.merge_and_unload()
@@ -239,6 +261,9 @@ def train_model(
     if teach is not None:  # the teacher's standardised scores of positive and candidates
         columns["label"] = [e["labels"] for e in examples]
     dataset = Dataset.from_dict(columns)
+    texts = {k: v for k, v in columns.items() if k != "label"}
+    no_dup = teach is None or teach.contrastive_weight > 0
+    padding, sampler = _batching(model, texts, cfg, seed=seed, no_duplicates=no_dup)
     steps_per_epoch = -(-len(examples) // cfg.batch_size)
     save_steps = cfg.checkpoint_steps or cfg.eval_steps
     dev_args: dict[str, Any] = {}
@@ -260,9 +285,7 @@ def train_model(
         data_seed=seed,
         # in-batch negatives must not be copies of a positive; a distillation loss without
         # the contrastive term compares each query only with its own candidates
-        batch_sampler="no_duplicates"
-        if teach is None or teach.contrastive_weight > 0
-        else "batch_sampler",
+        batch_sampler=sampler or ("no_duplicates" if no_dup else "batch_sampler"),
         save_strategy="steps" if save_steps else "no",
         save_steps=save_steps or 500,
         save_total_limit=2,
@@ -335,4 +358,6 @@ def train_model(
         "bf16": bf16,
         "bf16_setting": cfg.bf16,
         "bf16_native": cpu_bf16_native() if bf16 else None,
+        "batching": cfg.batching,
+        "pad_share": padding,
     } | dev_info
