@@ -138,6 +138,9 @@ bf16 = "auto"              # bfloat16 autocast: true, false, or "auto": on where
 mix_weights = [0.0, 0.25, 0.5, 0.75, 1.0]  # the safety net: these mixes of base (0) and tuned
                            # (1) weights are scored on dev and the best kept; [] = off
 batching = "random"        # or "length": batches of similar length, fewer pad tokens
+minutes = 0                # a budget: a warm-up times a step here and the training examples
+                           # are capped (seeded choice) so training fits; 0 = no budget
+max_pairs = 0              # cap the training examples at this number (seeded); 0 = all
 
 [evaluate]
 splits = []               # [] = every split there is: dev, test; with synth.questions also

@@ -332,8 +332,15 @@ class TrainConfig:
     # "random": batches drawn at random (without duplicate texts); "length": batches of similar
     # length, so fewer pad tokens are computed (stages/train/batches.py)
     batching: str = "random"
+    # a budget (stages/train/budget.py): a short warm-up times a step on this machine; minutes
+    # caps the training examples so the estimate fits, max_pairs caps them at a number (seeded
+    # choice either way; 0 = no cap)
+    minutes: float = 0.0
+    max_pairs: int = 0
 
     def __post_init__(self) -> None:
+        _range("train.minutes", self.minutes, 0.0, 100_000.0)
+        _range("train.max_pairs", self.max_pairs, 0, 10**9)
         if self.batching not in ("random", "length"):
             _fail("train.batching", self.batching, "'random' or 'length'")
         for w in self.mix_weights:

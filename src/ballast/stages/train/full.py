@@ -152,6 +152,51 @@ def _loss(model: Any, cfg: TrainConfig) -> Any:
     return loss
 
 
+ESTIMATE_ABOVE = 30  # steps: shorter trainings start at once, unless a budget is set
+
+
+def _estimate(
+    model: Any, loss: Any, columns: dict[str, list[Any]], cfg: TrainConfig, *, seed: int,
+    bf16: bool, work_dir: Path, progress: Progress,
+) -> tuple[dict[str, list[Any]], dict[str, Any] | None]:  # fmt: skip
+    """Say how long training will take (a timed warm-up) and apply ``train.minutes`` and
+    ``train.max_pairs``. The choice is kept in the work folder, so a resumed training trains
+    on the same examples whatever the machine's speed is now."""
+    import json
+
+    from ballast.core.text import sha256_bytes
+    from ballast.stages.train import budget
+
+    n = len(columns["anchor"])
+    steps = -(-n // cfg.batch_size) * cfg.epochs
+    if not (cfg.minutes or cfg.max_pairs or steps > ESTIMATE_ABOVE):
+        return columns, None
+    saved = work_dir / "budget.json"
+    key = [n, cfg.minutes, cfg.max_pairs, cfg.batch_size, cfg.epochs, seed,
+           sha256_bytes("\0".join(columns["anchor"]).encode("utf-8"))]  # fmt: skip
+    before = json.loads(saved.read_text("utf-8")) if saved.is_file() else {}
+    if before.get("key") == key:
+        kept, info = before["kept"], before["info"]
+        progress.info(f"train: resuming on the {len(kept)} examples chosen before")
+    elif cfg.minutes or steps > ESTIMATE_ABOVE:
+        kept, info = budget.plan(model, loss, columns, cfg, seed=seed, bf16=bf16)
+        step = info["warmup_seconds_per_step"]
+        full = step * steps / 60
+        progress.info(f"train: {steps} steps of {cfg.batch_size} at about {step:.2f} s a step "
+                      f"here: about {full:.1f} min (dev scoring not included)")  # fmt: skip
+    else:
+        kept = budget.choose(n, budget.cap(n, cfg, None), seed)
+        info = {"pairs_available": n, "pairs_kept": len(kept), "max_pairs": cfg.max_pairs}
+    if len(kept) < n:
+        why = f"train.minutes = {cfg.minutes:g}" if cfg.minutes else "train.max_pairs"
+        progress.info(f"train: {why}: training on {len(kept)} of {n} examples (seeded choice)"
+                      + (f", about {info['estimated_minutes']:.1f} min" if "estimated_minutes"
+                         in info else ""))  # fmt: skip
+    work_dir.mkdir(parents=True, exist_ok=True)
+    saved.write_text(json.dumps({"key": key, "kept": kept, "info": info}), "utf-8")
+    return {k: [v[i] for i in kept] for k, v in columns.items()}, info
+
+
 def _batching(
     model: Any, columns: dict[str, list[str]], cfg: TrainConfig, *, seed: int, no_duplicates: bool
 ) -> tuple[dict[str, float], Any]:
@@ -260,11 +305,15 @@ def train_model(
         columns[f"negative_{j + 1}"] = [e[others][j] for e in examples]
     if teach is not None:  # the teacher's standardised scores of positive and candidates
         columns["label"] = [e["labels"] for e in examples]
+    loss = _loss(model, cfg) if teach is None else distillation_loss(model, teach)
+    columns, estimate = _estimate(model, loss, columns, cfg, seed=seed, bf16=bf16,
+                                  work_dir=work_dir, progress=progress)  # fmt: skip
+    n_examples = len(columns["anchor"])
     dataset = Dataset.from_dict(columns)
     texts = {k: v for k, v in columns.items() if k != "label"}
     no_dup = teach is None or teach.contrastive_weight > 0
     padding, sampler = _batching(model, texts, cfg, seed=seed, no_duplicates=no_dup)
-    steps_per_epoch = -(-len(examples) // cfg.batch_size)
+    steps_per_epoch = -(-n_examples // cfg.batch_size)
     save_steps = cfg.checkpoint_steps or cfg.eval_steps
     dev_args: dict[str, Any] = {}
     if cfg.eval_steps:
@@ -310,7 +359,7 @@ def train_model(
         model=model,
         args=args,
         train_dataset=dataset,
-        loss=_loss(model, cfg) if teach is None else distillation_loss(model, teach),
+        loss=loss,
         evaluator=_dev_evaluator(dev, dev_history) if cfg.eval_steps and dev else None,
         callbacks=callbacks,
     )
@@ -345,11 +394,12 @@ def train_model(
             "stopped_early": int(result.global_step) < int(state.max_steps),
         }
     return {
-        "pairs": len(examples),
+        "pairs": n_examples,
+        "estimate": estimate,
         "hard_negatives_per_pair": n_neg,
         "steps": int(result.global_step),
         "seconds": round(seconds, 2),
-        "pairs_per_second": round(len(examples) * cfg.epochs / max(seconds, 1e-9), 3),
+        "pairs_per_second": round(n_examples * cfg.epochs / max(seconds, 1e-9), 3),
         "batch_size_per_process": cfg.batch_size,
         "final_loss": round(float(result.training_loss), 6),
         "loss_history": history,
