@@ -75,8 +75,8 @@ def test_empty_file(tmp_path: Path) -> None:
 
 
 def test_unknown_extension(tmp_path: Path) -> None:
-    err = _ingest_fails(tmp_path, "scan.pdf", b"%PDF-1.4")
-    assert "scan.pdf" in err and ".pdf" in err and ".md" in err
+    err = _ingest_fails(tmp_path, "sheet.xlsx", b"PK\x03\x04")
+    assert "sheet.xlsx" in err and ".xlsx" in err and ".md" in err
 
 
 def test_duplicate_ids(tmp_path: Path) -> None:
@@ -135,3 +135,23 @@ def test_bad_question_file(tmp_path: Path, bad: str, field: str) -> None:
     assert r.exit_code == 2
     assert "q.jsonl:2" in r.stderr and f"field '{field}'" in r.stderr
     assert not (tmp_path / "run" / "queries.jsonl").exists()
+
+
+def test_unreadable_pdf_stops_ingest_or_is_skipped_and_listed(tmp_path: Path) -> None:
+    import json
+
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "a.md").write_text("# A\n\nThe press is rinsed after each batch of apples.\n", "utf-8")
+    (docs / "scan.pdf").write_bytes(b"\x89PNG not a pdf at all")
+    cfg = write_config(tmp_path, docs)
+    r = invoke("ingest", str(cfg), "-q")
+    assert r.exit_code == 2 and "scan.pdf" in r.stderr and "not a PDF file" in r.stderr
+    assert "Traceback" not in r.output
+    assert not (tmp_path / "run" / "passages.jsonl").exists()  # nothing half-written
+    r = invoke("ingest", str(cfg), "--set", "ingest.on_error=skip")
+    assert r.exit_code == 0, r.output
+    assert "scan.pdf: not a PDF file" in r.stderr
+    skipped = [json.loads(x) for x in (tmp_path / "run" / "skipped.jsonl").read_text().splitlines()]
+    assert skipped == [{"file": "scan.pdf", "reason": "not a PDF file: it does not start with "
+                        "'%PDF-'"}]  # fmt: skip

@@ -345,9 +345,9 @@ def test_csv_row_missing_text(tmp_path: Path) -> None:
 
 
 def test_unknown_extension(tmp_path: Path) -> None:
-    err = input_error(tmp_path, {"a.txt": "Fine.", "b.pdf": "%PDF"})
-    assert err.path == str(tmp_path / "b.pdf")
-    assert "'.pdf'" in str(err) and "ingest.extensions" in str(err)
+    err = input_error(tmp_path, {"a.txt": "Fine.", "b.xlsx": "PK"})
+    assert err.path == str(tmp_path / "b.xlsx")
+    assert "'.xlsx'" in str(err) and "ingest.extensions" in str(err)
     # a known type left out of ingest.extensions is refused too
     cfg = IngestConfig(max_tokens=16, overlap_tokens=0, min_tokens=1, extensions=(".txt",))
     err = input_error(tmp_path / "md", {"a.md": "# x"}, cfg)

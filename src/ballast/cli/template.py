@@ -10,8 +10,10 @@ seed = 0                   # one seed for every stage: same inputs + seed -> sam
 base_model = "packaged:all-MiniLM-L6-v2"   # or a local sentence-transformers folder
 
 [ingest]
-docs = "docs"              # a folder of .txt .md .html .jsonl .csv .parquet files
-extensions = [".txt", ".md", ".html", ".htm", ".jsonl", ".csv", ".parquet"]  # other files: error
+docs = "docs"              # a folder of .txt .md .html .pdf .docx .jsonl .csv .parquet files
+extensions = [".txt", ".md", ".html", ".htm", ".pdf", ".docx", ".jsonl", ".csv", ".parquet"]
+on_error = "stop"          # a file that cannot be read stops the ingest; "skip": it is left out
+                           # and listed with the reason in skipped.jsonl
 max_tokens = 120           # passage length in base-model tokens
 overlap_tokens = 24        # trailing sentences repeated at the start of the next passage
 min_tokens = 8             # shorter passages are dropped (and counted)

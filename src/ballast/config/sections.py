@@ -50,7 +50,12 @@ def _range(
 @dataclass(frozen=True)
 class IngestConfig:
     docs: str = "docs"
-    extensions: tuple[str, ...] = (".txt", ".md", ".html", ".htm", ".jsonl", ".csv", ".parquet")
+    extensions: tuple[str, ...] = (
+        ".txt", ".md", ".html", ".htm", ".pdf", ".docx", ".jsonl", ".csv", ".parquet"
+    )  # fmt: skip
+    # "stop": a file that cannot be read stops the ingest (the default); "skip": it is left out
+    # and listed with the reason in skipped.jsonl and the stage summary
+    on_error: str = "stop"
     max_tokens: int = 120
     overlap_tokens: int = 24
     min_tokens: int = 8
@@ -65,6 +70,8 @@ class IngestConfig:
         for ext in self.extensions:
             if not ext.startswith("."):
                 _fail("ingest.extensions", ext, "extensions that start with a dot, like '.md'")
+        if self.on_error not in ("stop", "skip"):
+            _fail("ingest.on_error", self.on_error, "'stop' or 'skip'")
 
 
 @dataclass(frozen=True)

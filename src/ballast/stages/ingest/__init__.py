@@ -21,6 +21,16 @@ def ingest(run: Run) -> dict[str, Any]:
         run.path("passages.jsonl"),
         iter_passages(Path(run.cfg.ingest.docs), run.cfg.ingest, count, stats),
     )
+    skipped = stats.pop("skipped_files", [])
+    write_jsonl(run.path("skipped.jsonl"), skipped)
+    if skipped:
+        run.progress.info(
+            f"ingest: {len(skipped)} file(s) could not be read and were skipped "
+            f"(ingest.on_error = \"skip\"), listed in {run.path('skipped.jsonl')}: "
+            + "; ".join(f"{s['file']}: {s['reason']}" for s in skipped[:3])
+            + (" …" if len(skipped) > 3 else "")
+        )
+    stats["skipped"] = len(skipped)
     return stats
 
 
@@ -28,7 +38,7 @@ STAGE = Stage(
     "ingest",
     ingest,
     keys=("ingest",),
-    outputs=("passages.jsonl",),
+    outputs=("passages.jsonl", "skipped.jsonl"),
     external=lambda run: {"docs": file_fingerprint(run.cfg.ingest.docs)},
     base_model=True,  # its tokenizer cuts the passages
 )

@@ -28,6 +28,7 @@ class Document:
     title: str
     sections: list[tuple[str, list[str]]]  # (heading, paragraphs)
     source: str
+    paged: bool = False  # a PDF: each section is a page, headed "p. N"
 
 
 @dataclass
@@ -217,8 +218,12 @@ def _parquet_rows(path: Path) -> Iterator[tuple[int, dict]]:
     yield from enumerate(table.to_pylist(), start=1)
 
 
-def read_folder(folder: Path, cfg: IngestConfig) -> Iterator[Document]:
-    """Every document under ``folder`` in a stable order (sorted relative paths)."""
+def read_folder(
+    folder: Path, cfg: IngestConfig, skipped: list[dict[str, str]] | None = None
+) -> Iterator[Document]:
+    """Every document under ``folder`` in a stable order (sorted relative paths). With
+    ``ingest.on_error = "skip"``, a file that cannot be read is left out and added to
+    ``skipped`` with the reason; by default it stops the ingest."""
     if not folder.is_dir():
         raise InputError("documents folder not found", path=folder, field="ingest.docs")
     files = sorted(
@@ -229,34 +234,65 @@ def read_folder(folder: Path, cfg: IngestConfig) -> Iterator[Document]:
     if not files:
         raise InputError("the documents folder has no files", path=folder)
     for path in files:
-        ext = path.suffix.lower()
         rel = path.relative_to(folder).as_posix()
-        if ext not in cfg.extensions:
-            raise InputError(
-                f"unknown file type '{ext or path.name}'; expected one of "
-                f"{', '.join(cfg.extensions)} (set ingest.extensions, or move the file out)",
-                path=path,
-            )
-        if ext in (".jsonl", ".csv", ".parquet"):
-            rows = {
-                ".jsonl": lambda p: read_jsonl(p),
-                ".csv": _csv_rows,
-                ".parquet": _parquet_rows,
-            }[ext](path)
-            yield from _record_docs(rows, path, rel, cfg)
+        if cfg.on_error != "skip":
+            yield from _read_file(path, rel, cfg)
             continue
-        text = read_text(path)
-        if not text.strip():
-            raise InputError("the document is empty", path=path)
-        if ext == ".md":
-            title, sections = parse_markdown(text, path.stem)
-        elif ext in (".html", ".htm"):
-            title, sections = parse_html(text, path.stem)
-        else:
-            title, sections = path.stem, [("", _paragraphs(normalise(text).split("\n")))]
+        try:
+            docs = list(_read_file(path, rel, cfg))  # all of a file or none of it
+        except InputError as exc:
+            if skipped is not None:
+                where = f" (line {exc.line})" if exc.line is not None else ""
+                skipped.append({"file": rel, "reason": exc.detail + where})
+            continue
+        yield from docs
+
+
+def _read_file(path: Path, rel: str, cfg: IngestConfig) -> Iterator[Document]:
+    from ballast.stages.ingest.formats import is_docx, is_pdf, read_docx, read_pdf
+
+    ext = path.suffix.lower()
+    if ext not in cfg.extensions:
+        raise InputError(
+            f"unknown file type '{ext or path.name}'; expected one of "
+            f"{', '.join(cfg.extensions)} (set ingest.extensions, or move the file out)",
+            path=path,
+        )
+    if ext == ".pdf":
+        yield Document(rel, *read_pdf(path), rel, paged=True)
+        return
+    if ext == ".docx":
+        title, sections = read_docx(path)
         if not sections:
             raise InputError("the document has no text", path=path)
         yield Document(rel, title, sections, rel)
+        return
+    if ext != ".parquet" and (is_pdf(path) or is_docx(path)):
+        kind = "a PDF" if is_pdf(path) else "a Word .docx"
+        raise InputError(
+            f"this is {kind} file named '{ext}': rename it so ingest reads it as one",
+            path=path,
+        )
+    if ext in (".jsonl", ".csv", ".parquet"):
+        rows = {
+            ".jsonl": lambda p: read_jsonl(p),
+            ".csv": _csv_rows,
+            ".parquet": _parquet_rows,
+        }[ext](path)
+        yield from _record_docs(rows, path, rel, cfg)
+        return
+    text = read_text(path)
+    if not text.strip():
+        raise InputError("the document is empty", path=path)
+    if ext == ".md":
+        title, sections = parse_markdown(text, path.stem)
+    elif ext in (".html", ".htm"):
+        title, sections = parse_html(text, path.stem)
+    else:
+        title, sections = path.stem, [("", _paragraphs(normalise(text).split("\n")))]
+    if not sections:
+        raise InputError("the document has no text", path=path)
+    yield Document(rel, title, sections, rel)
 
 
 # ---------------------------------------------------------------- chunking
@@ -330,7 +366,8 @@ def iter_passages(
     seen_docs: dict[str, str] = {}
     seen_text: set[bytes] = set()
     dup = short = kept = tokens = 0
-    for d in read_folder(folder, cfg):
+    skipped: list[dict[str, str]] = []
+    for d in read_folder(folder, cfg, skipped):
         if d.doc_id in seen_docs:
             rel, _, line = d.source.rpartition(":")  # "<file>:<line>" for a record's source
             if not (rel and line.isdigit()):
@@ -367,22 +404,27 @@ def iter_passages(
                     continue
                 seen_text.add(key)
                 title = d.title if not heading or heading == d.title else f"{d.title} — {heading}"
+                meta: dict[str, Any] = {"index": index, "tokens": ntok, "section": heading}
+                if d.paged:
+                    meta["page"] = int(heading.removeprefix("p. "))
                 yield {
                     "id": passage_id(d.doc_id, text),
                     "doc_id": d.doc_id,
                     "text": text,
                     "title": title,
-                    "meta": {"index": index, "tokens": ntok, "section": heading},
+                    "meta": meta,
                 }
                 index += 1
                 kept += 1
                 tokens += ntok
     if not kept:
-        raise InputError("no passages: every document was empty or too short", path=folder)
+        why = f" ({len(skipped)} file(s) skipped as unreadable)" if skipped else ""
+        raise InputError(f"no passages: every document was empty or too short{why}", path=folder)
     if stats is not None:
         stats.update(
             {
                 "documents": len(seen_docs),
+                "skipped_files": skipped,
                 "passages": kept,
                 "duplicates_dropped": dup,
                 "too_short_dropped": short,
