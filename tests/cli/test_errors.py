@@ -155,3 +155,28 @@ def test_unreadable_pdf_stops_ingest_or_is_skipped_and_listed(tmp_path: Path) ->
     skipped = [json.loads(x) for x in (tmp_path / "run" / "skipped.jsonl").read_text().splitlines()]
     assert skipped == [{"file": "scan.pdf", "reason": "not a PDF file: it does not start with "
                         "'%PDF-'"}]  # fmt: skip
+
+
+def test_cli_habits_version_short_help_and_bare_command() -> None:
+    from ballast import __version__
+
+    r = invoke("--version")
+    assert r.exit_code == 0 and r.stdout == f"ballast {__version__}\n"
+    bare = invoke()
+    assert bare.exit_code == 0 and "Commands:" in bare.stdout  # the help, as success
+    assert invoke("-h").stdout == invoke("--help").stdout
+    listing = invoke("--help").stdout.split("Commands:")[1]
+    assert "…" not in listing and "..." not in listing  # first paragraphs shown whole
+    assert "(labels.jsonl)" in listing
+
+
+def test_json_errors_are_json_on_stdout(tmp_path: Path) -> None:
+    import json
+
+    cfg = write_config(tmp_path, tmp_path / "missing")
+    r = invoke("ingest", str(cfg), "--json")
+    assert r.exit_code == 2
+    doc = json.loads(r.stdout)
+    assert doc["exit_code"] == 2 and "documents folder not found" in doc["error"]
+    assert doc["field"] == "ingest.docs" and doc["path"].endswith("missing")
+    assert "error:" in r.stderr  # and the same message for a person

@@ -126,3 +126,12 @@ def test_config_loader_bytes(tmp_path: Path, data: bytes) -> None:
         load_config(p)
     except ConfigError as exc:
         assert str(p) in str(exc)
+
+
+def test_a_tsv_header_row_is_not_read_as_a_text(tmp_path: Path) -> None:
+    # common practice: a TSV's first line may name its columns (BEIR-style query files do)
+    p = tmp_path / "q.tsv"
+    p.write_text("qid\tquery\nq1\thow is the press cleaned?\n", "utf-8")
+    assert read_texts(p, "query") == [("q1", "how is the press cleaned?")]
+    p.write_text("id\tthe first text\nq1\tsecond\n", "utf-8")  # not a header: a text
+    assert [i for i, _ in read_texts(p, "query")] == ["id", "q1"]

@@ -12,9 +12,22 @@ import typer
 from ballast.cli.output import StderrProgress, emit_json, gate_text, metrics_table, stage_line
 from ballast.core.errors import BallastError
 
+
+class _Group(typer.core.TyperGroup):
+    """The command list shows each command's first paragraph whole, not cut at 45 characters."""
+
+    def format_commands(self, ctx: Any, formatter: Any) -> None:
+        for cmd in self.commands.values():
+            if not cmd.short_help and cmd.help:
+                cmd.short_help = " ".join(cmd.help.split("\n\n")[0].split())
+        super().format_commands(ctx, formatter)
+
+
 app = typer.Typer(
+    cls=_Group,
     add_completion=False,
-    no_args_is_help=True,
+    invoke_without_command=True,
+    context_settings={"help_option_names": ["-h", "--help"]},
     rich_markup_mode=None,
     help="Adapt a sentence-embedding model to your documents on a CPU, and prove the gain "
     "on every evaluation split before it ships.\n\n"
@@ -23,7 +36,26 @@ app = typer.Typer(
     "checked the model).",
 )
 
-Target = Annotated[Path, typer.Argument(help="A config file (.toml) or a run folder.")]
+@app.callback()
+def _main(
+    ctx: typer.Context,
+    version: Annotated[
+        bool, typer.Option("--version", help="Print ballast's version and exit.")
+    ] = False,
+) -> None:
+    if version:
+        from ballast import __version__
+
+        sys.stdout.write(f"ballast {__version__}\n")
+        raise typer.Exit(0)
+    if ctx.invoked_subcommand is None:  # bare `ballast`: the help, and success
+        sys.stdout.write(ctx.get_help() + "\n")
+        raise typer.Exit(0)
+
+
+Target = Annotated[
+    Path, typer.Argument(metavar="TARGET", help="A config file (.toml) or a run folder.")
+]
 Sets = Annotated[
     list[str] | None,
     typer.Option(
@@ -53,8 +85,13 @@ Int8 = Annotated[
 SHOWN = ["ndcg@10", "mrr@10", "recall@10"]
 
 
-def _fail(exc: BallastError) -> None:
+def _fail(exc: BallastError, as_json: bool = False) -> None:
+    """The error on stderr, and with --json also as one JSON document on stdout."""
     sys.stderr.write(f"error: {exc}\n")
+    if as_json:
+        fields = {k: getattr(exc, k, None) for k in ("path", "line", "field", "key")}
+        emit_json({"error": str(exc), "exit_code": exc.exit_code,
+                   **{k: v for k, v in fields.items() if v is not None}})  # fmt: skip
     raise typer.Exit(exc.exit_code)
 
 
@@ -87,7 +124,7 @@ def _stage(
         run.persist_config = not (target.is_dir() and sets)  # a one-off --set does not stick
         result = run_stage(run, stage)
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     except KeyboardInterrupt:
         _interrupted(run)
     if as_json:
@@ -224,7 +261,7 @@ def evaluate_command(
             StderrProgress(quiet or as_json),
         )
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     if as_json:
         emit_json(summary)
     else:
@@ -241,7 +278,7 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
     try:
         results = run_all(run)
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     except KeyboardInterrupt:
         _interrupted(run)
     verdict = _read(run.path("gate.json"))
@@ -298,7 +335,7 @@ def run_command(
     try:
         cfg = _load(config, set_)
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     _run(cfg, as_json, quiet, force)
 
 
@@ -322,7 +359,7 @@ def demo_command(set_: Sets = None, as_json: Json = False, quiet: Quiet = False)
     try:
         cfg = load_config(demo_config(), set_ or [])
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     if not quiet and not as_json:
         sys.stderr.write(
             "ballast demo: the invented Kestrel Hollow Cider Works handbook "
@@ -404,7 +441,7 @@ def embed_command(
             progress=StderrProgress(quiet or as_json),
         )
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     if as_json:
         emit_json(result)
     else:
@@ -423,7 +460,7 @@ def verify_command(bundle: Bundle, as_json: Json = False, quiet: Quiet = False) 
     try:
         result = verify_bundle(bundle, progress=StderrProgress(quiet or as_json))
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     if as_json:
         emit_json(result)
     else:

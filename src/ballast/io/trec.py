@@ -54,8 +54,21 @@ def read_qrels(path: str | Path) -> dict[str, dict[str, int]]:
     return out
 
 
+HEADER_IDS = {"id", "_id", "qid", "pid", "docid", "doc_id", "query_id", "query-id",
+              "passage_id", "corpus-id", "did"}  # fmt: skip
+HEADER_TEXTS = {"text", "query", "question", "passage", "contents", "content", "body"}
+
+
+def is_header(line: str) -> bool:
+    """Whether a TSV's first line names its columns (``id<TAB>text``, ``qid<TAB>query``, ...)
+    rather than holding a text: both cells are such column names."""
+    cells = [c.strip().lower() for c in line.split("\t")]
+    return len(cells) == 2 and cells[0] in HEADER_IDS and cells[1] in HEADER_TEXTS
+
+
 def read_texts(path: str | Path, what: str) -> list[tuple[str, str]]:
-    """(id, text) pairs from a JSONL (``id``, ``text``) or a TSV (``id<TAB>text``) file."""
+    """(id, text) pairs from a JSONL (``id``, ``text``) or a TSV (``id<TAB>text``) file; a
+    TSV's first line is skipped when it is a header (``is_header``)."""
     path = Path(path)
     rows: list[tuple[str, str]] = []
     seen: dict[str, int] = {}
@@ -71,9 +84,14 @@ def read_texts(path: str | Path, what: str) -> list[tuple[str, str]]:
     else:
 
         def tsv():
+            first = True
             for ln, line in enumerate(read_text(path).splitlines(), start=1):
                 if not line.strip():
                     continue
+                if first and is_header(line):
+                    first = False
+                    continue  # a header row names the columns; it is not a text
+                first = False
                 if "\t" not in line:
                     raise InputError(f"expected 'id<TAB>text' for each {what}", path=path, line=ln)
                 i, t = line.split("\t", 1)
