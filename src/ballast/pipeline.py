@@ -138,6 +138,15 @@ def _say_what_changed(run: Run, stage: str, parts: dict[str, Any]) -> None:
         run.progress.info(f"{stage}: settings changed since its last run: {'; '.join(diffs)}")
 
 
+def stage_title(spec: Stage) -> str:
+    """What a stage does, from the first line of its package's docstring ("Stage mine: hard
+    negatives for the training pairs -> negatives.jsonl, ...")."""
+    import sys
+
+    doc = (sys.modules[spec.run.__module__].__doc__ or spec.name).strip().splitlines()[0]
+    return doc.split(":", 1)[1].strip().rstrip(".") if doc.startswith("Stage ") else doc
+
+
 def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     spec = STAGES[stage]
     fp, parts = fingerprint(run, stage)
@@ -146,6 +155,7 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
         if done is not None:
             run.progress.info(f"{stage}: unchanged, skipped")
             return {"stage": stage, "skipped": True, "summary": done["summary"]}
+    run.progress.info(f"── {stage} ({ORDER.index(stage) + 1}/{len(ORDER)}): {stage_title(spec)}")
     _say_what_changed(run, stage, parts)
     done_path(run, stage).unlink(missing_ok=True)
     for out in spec.outputs:  # what a killed run of this stage left half-built

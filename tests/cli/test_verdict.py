@@ -45,8 +45,19 @@ def test_a_five_document_project_stops_before_training(tmp_path: Path) -> None:
     assert "pre-flight" in r.stderr and "gate.min_queries" in r.stderr
     assert "split human_heldout has" in r.stderr or "split human has" in r.stderr
     assert "more real questions" in r.stderr
+    # each stage that runs is announced, numbered, with what it does
+    assert "── ingest (1/11): the documents folder -> passages.jsonl" in r.stderr
+    assert "── check (4/11)" in r.stderr and "── mine" not in r.stderr
     run = tmp_path / "run"
     assert (run / "check.json").is_file() and not (run / "model").exists()
     assert not (run / "negatives.jsonl").exists()  # stopped before mining too
     check = json.loads((run / "check.json").read_text("utf-8"))
     assert check["problems"] and check["min_queries"] == 30
+
+
+def test_the_run_ends_with_the_next_step_for_its_verdict() -> None:
+    from ballast.cli.app import next_step
+
+    assert "ballast verify B" in next_step({"passed": True, "evidence": "real"}, "B")
+    assert "ballast write" in next_step({"passed": True, "evidence": "synthetic"}, "B")
+    assert "report.html" in next_step({"passed": False, "evidence": "real"}, None)

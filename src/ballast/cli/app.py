@@ -308,7 +308,22 @@ def _run(cfg: Any, as_json: bool, quiet: bool, force: bool) -> None:
                 "bundle: not exported (the gate failed; `ballast export --force` "
                 "overrides, and the manifest records it)"
             )
+        typer.echo(next_step(verdict, exported["summary"]["bundle"] if exported else None))
     _exit_for(verdict)
+
+
+def next_step(verdict: dict[str, Any], bundle: str | None) -> str:
+    """One line: what to do now, by the verdict."""
+    if not verdict["passed"]:
+        return (
+            "next: read report.html (where the tuned model lost, query by query), then try "
+            "another recipe chosen on the dev splits (docs/training.md, docs/teaching.md)"
+        )
+    if verdict.get("evidence") != "real":
+        return ("next: write 30-100 real questions (`ballast write`, README) so the verdict "
+                "rests on them, not on queries like those the model trained on")  # fmt: skip
+    return (f"next: `ballast verify {bundle}`, then hand the bundle to the index builder "
+            "(README, 'Loading a bundle in an index builder')")  # fmt: skip
 
 
 # A pass that rests on synthetic queries alone is not a plain pass: scripts that check for 0

@@ -202,7 +202,7 @@ def agreement_command(
     try:
         result = agreement(read_qrels(first), read_qrels(second))
     except BallastError as exc:
-        _fail(exc)
+        _fail(exc, as_json)
     if as_json:
         emit_json(result)
         return

@@ -1,5 +1,7 @@
-"""Stage report: the run's files -> report.html and report.md (runs whether the gate passed
-or failed; it reads only files earlier stages wrote and never re-encodes anything)."""
+"""Stage report: the run's files -> report.html and report.md.
+
+It runs whether the gate passed or failed; it reads only files earlier stages wrote and never
+re-encodes anything."""
 
 from __future__ import annotations
 

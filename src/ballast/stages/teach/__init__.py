@@ -1,5 +1,4 @@
-"""Stage teach: a teacher's scores for each training query's candidates -> labels.jsonl,
-teacher.json.
+"""Stage teach: a teacher's scores of the training candidates -> labels.jsonl, teacher.json.
 
 With ``teach.teacher = "none"`` (the default) both files say so and training keeps its
 contrastive loss. Otherwise the teacher check comes first: on the dev queries (the real ones
