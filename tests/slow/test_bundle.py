@@ -58,6 +58,19 @@ def test_manifest_matches_its_schema(bundle: Path) -> None:
     assert "manifest.json" not in manifest["files_sha256"]
 
 
+def test_the_bundle_carries_a_model_card_and_the_base_licence(bundle: Path) -> None:
+    manifest = read_manifest(bundle)
+    # the packaged base model's README front matter says "license: apache-2.0"
+    assert manifest["base_model"]["license"] == "apache-2.0"
+    assert manifest["model_card"] == "README.md" and "README.md" in manifest["files_sha256"]
+    card = (bundle / "README.md").read_text("utf-8")
+    for part in ("## Verdict", "## Metrics", "licence: **apache-2.0**", "## Intended use",
+                 "## Limits and cautions", "qualified person"):  # fmt: skip
+        assert part in card, part
+    test = manifest["metrics"]["test"]["ndcg@10"]
+    assert f"{test['tuned']:.4f}" in card and f"{test['diff']:+.4f}" in card
+
+
 def test_schema_rejects_broken_manifests(bundle: Path) -> None:
     # common practice: a schema test must also see the schema say no
     v, good = validator(), read_manifest(bundle)

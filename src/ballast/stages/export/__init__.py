@@ -19,6 +19,7 @@ def export(run: Run) -> dict[str, Any]:
     from ballast.models.loading import weights_hash
     from ballast.models.query_map import adapter_facts
     from ballast.stages.export.bundle import copy_model, model_facts, restore_length
+    from ballast.stages.export.card import CARD, base_licence, model_card
 
     model_dir = run.need("model", "train")
     verdict = json.loads(run.need("gate.json", "gate").read_text("utf-8"))
@@ -76,6 +77,7 @@ def export(run: Run) -> dict[str, Any]:
             "id": run.cfg.base_model,
             "fingerprint": run.base_fp,
             "weights_sha256": weights_hash(run.base_path),
+            "license": base_licence(run.base_path),
         },
         "training": {
             "config": section_dict(run.cfg.train),
@@ -133,6 +135,13 @@ def export(run: Run) -> dict[str, Any]:
             from ballast.stages.export.onnx import bundle_onnx
 
             manifest["onnx"] = bundle_onnx(run, tmp, quantize=run.cfg.export.quantize_int8)
+        summaries = {}
+        for stage in ("ingest", "synth"):
+            done = run.path(f"{stage}.done.json")
+            summaries[stage] = json.loads(done.read_text("utf-8")).get("summary", {}) \
+                if done.is_file() else {}  # fmt: skip
+        (tmp / CARD).write_text(model_card(manifest, summaries), "utf-8")
+        manifest["model_card"] = CARD
         manifest["files_sha256"] = files_hash(tmp)
         write_json(tmp / "manifest.json", manifest)
     onnx = manifest["onnx"]
@@ -161,5 +170,5 @@ STAGE = Stage(
         "gate.primary_metric",
         "gate.splits",
     ),
-    inputs=("model", "gate.json", "metrics.json"),
+    inputs=("model", "gate.json", "metrics.json", "ingest.done.json", "synth.done.json"),
 )
