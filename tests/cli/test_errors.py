@@ -180,3 +180,12 @@ def test_json_errors_are_json_on_stdout(tmp_path: Path) -> None:
     assert doc["exit_code"] == 2 and "documents folder not found" in doc["error"]
     assert doc["field"] == "ingest.docs" and doc["path"].endswith("missing")
     assert "error:" in r.stderr  # and the same message for a person
+
+
+def test_a_stage_command_says_where_it_wrote(tmp_path: Path) -> None:
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "a.md").write_text("# A\n\nThe press is rinsed after each batch of apples.\n", "utf-8")
+    r = invoke("ingest", str(write_config(tmp_path, docs)), "-q")
+    assert r.exit_code == 0
+    assert f"wrote {tmp_path / 'run' / 'passages.jsonl'}" in r.stdout

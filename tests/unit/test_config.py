@@ -56,11 +56,8 @@ def test_template_loads_with_default_values(template_path: Path) -> None:
     cfg = load_config(template_path)
     default = Config()
     assert cfg.name == "proj"
-    assert (cfg.seed, cfg.run_dir, cfg.base_model) == (
-        default.seed,
-        default.run_dir,
-        default.base_model,
-    )
+    assert (cfg.seed, cfg.base_model) == (default.seed, default.base_model)
+    assert cfg.run_path == template_path.parent / "runs" / "proj"  # beside the file
     for section in SECTIONS:
         got, want = getattr(cfg, section), getattr(default, section)
         if section == "ingest":  # the one non-empty relative path is resolved against the file
@@ -218,7 +215,8 @@ def test_packaged_model_and_empty_paths_are_not_resolved(tmp_path: Path) -> None
     path = _write(tmp_path / "c.toml", 'base_model = "packaged:all-MiniLM-L6-v2"\n')
     cfg = load_config(path)
     assert cfg.base_model == "packaged:all-MiniLM-L6-v2"
-    assert (cfg.run_dir, cfg.export.dir) == ("", "")
+    assert cfg.export.dir == ""
+    assert cfg.run_path == tmp_path / "runs" / "run"  # the default, beside the config file
 
 
 def test_invalid_toml_names_the_file(tmp_path: Path) -> None:
@@ -292,3 +290,13 @@ def test_a_judge_must_be_a_generator_the_training_does_not_use() -> None:
 
     with pytest.raises(ConfigError, match="synth.judge_generators"):
         SynthConfig(generators=("ict", "headings"), judge_generators=("headings",))
+
+
+def test_the_run_folder_defaults_to_runs_beside_the_config_file(tmp_path: Path) -> None:
+    cfg_file = tmp_path / "project" / "ballast.toml"
+    cfg_file.parent.mkdir()
+    cfg_file.write_text('name = "manuals"\n', "utf-8")
+    assert load_config(cfg_file).run_path == tmp_path / "project" / "runs" / "manuals"
+    assert load_config(cfg_file, ["name=v2"]).run_path == tmp_path / "project" / "runs" / "v2"
+    cfg_file.write_text('name = "manuals"\nrun_dir = "out"\n', "utf-8")
+    assert load_config(cfg_file).run_path == tmp_path / "project" / "out"

@@ -130,7 +130,10 @@ def _stage(
     if as_json:
         emit_json(result)
     else:
+        from ballast.stages import STAGES
+
         typer.echo(stage_line(result))
+        typer.echo("wrote " + ", ".join(str(run.path(o)) for o in STAGES[stage].outputs))
         if stage == "evaluate":
             typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
         if stage == "gate":

@@ -1,12 +1,13 @@
 """The commented config template that `ballast init` writes (also configs/template.toml)."""
 
 TEMPLATE = """\
-# ballast configuration. Paths are relative to this file.
+# ballast configuration. Paths in this file are relative to it (paths given on the command
+# line with --set are relative to the current directory, as a shell's are).
 # Every key is optional; the values shown are the defaults.
 
 name = "{name}"            # names the run folder (runs/<name>) and the bundle
 seed = 0                   # one seed for every stage: same inputs + seed -> same files
-# run_dir = "runs/{name}"  # where the stages write (default runs/<name>)
+# run_dir = "runs/{name}"  # where the stages write (default runs/<name> beside this file)
 base_model = "packaged:all-MiniLM-L6-v2"   # or a local sentence-transformers folder
 
 [ingest]

@@ -254,7 +254,7 @@ def load_config(
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"not valid TOML: {exc}", source=source) from None
         _resolve_paths(data, path.parent)
-    return build_config(data, overrides, source=source)
+    return build_config(data, overrides, source=source, folder=path.parent if path else None)
 
 
 def load_run_config(run_dir: str | Path, overrides: list[str] | tuple[str, ...] = ()) -> Config:
@@ -276,8 +276,15 @@ def load_run_config(run_dir: str | Path, overrides: list[str] | tuple[str, ...] 
 
 
 def build_config(
-    data: dict[str, Any], overrides: list[str] | tuple[str, ...] = (), *, source: str | None = None
+    data: dict[str, Any],
+    overrides: list[str] | tuple[str, ...] = (),
+    *,
+    source: str | None = None,
+    folder: Path | None = None,
 ) -> Config:
+    """A checked config from ``data`` and ``KEY=VALUE`` overrides. ``folder``: the config
+    file's folder, where the run folder defaults to (``runs/<name>`` beside the file, as the
+    template says; without a file, under the current directory)."""
     for item in overrides:
         parts, value = _parse_override(item)
         table = data
@@ -286,6 +293,8 @@ def build_config(
             if not isinstance(table, dict):
                 raise ConfigError("is not a table", key=".".join(parts[:-1]))
         table[parts[-1]] = value
+    if folder is not None and not data.get("run_dir") and isinstance(data.get("name", ""), str):
+        data["run_dir"] = os.path.normpath(folder / "runs" / data.get("name", "run"))
     try:
         return _build(Config, data, "")
     except ConfigError as exc:
