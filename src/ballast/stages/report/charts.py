@@ -89,11 +89,15 @@ def bars_svg(groups: list[tuple[str, list[tuple[str, float, float, float]]]], ti
     return _svg(width, height, title, body)
 
 
-def forest_svg(rows: list[tuple[str, float, float, float]], title: str) -> str:
-    """Differences (label, diff, low, high) as points with intervals around a zero line."""
+def forest_svg(
+    rows: Sequence[tuple[str, float, float, float, float]], title: str, alpha: float = 0.05
+) -> str:
+    """Differences (label, diff, low, high, p) as points with intervals around a zero line:
+    green or red only where the interval excludes zero and the test agrees (p <= alpha), so a
+    gain the randomization test does not confirm is drawn in grey."""
     width, row_h, x0, w = 560, 26, 180.0, 360.0
     height = 40 + row_h * len(rows)
-    span = max([0.02] + [max(abs(lo), abs(hi), abs(d)) for _, d, lo, hi in rows]) * 1.15
+    span = max([0.02] + [max(abs(lo), abs(hi), abs(d)) for _, d, lo, hi, _ in rows]) * 1.15
 
     def sx(v: float) -> float:
         return x0 + w * (v + span) / (2 * span)
@@ -106,9 +110,11 @@ def forest_svg(rows: list[tuple[str, float, float, float]], title: str) -> str:
         f'<text x="{_f(sx(span))}" y="{height - 6}" text-anchor="end" class="tick">'
         f"{span:+.3f}</text>",
     ]
-    for i, (label, d, lo, hi) in enumerate(rows):
+    for i, (label, d, lo, hi, p) in enumerate(rows):
         y = 22 + i * row_h
-        colour = COLOURS["win"] if lo > 0 else COLOURS["loss"] if hi < 0 else "#4a5568"
+        sure = p <= alpha
+        colour = COLOURS["win"] if lo > 0 and sure else COLOURS["loss"] if hi < 0 and sure \
+            else "#4a5568"  # fmt: skip
         body.append(
             f'<text x="{_f(x0 - 8)}" y="{_f(y + 4)}" text-anchor="end" class="lab">{E(label)}'
             f'</text><line x1="{_f(sx(lo))}" y1="{_f(y)}" x2="{_f(sx(hi))}" y2="{_f(y)}" '

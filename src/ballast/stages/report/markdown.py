@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ballast.core.records import metric_rows
-from ballast.stages.report.charts import BASE, TUNED, E
+from ballast.stages.report.charts import BASE, TUNED
 from ballast.stages.report.content import (
     ReportInputs,
     _counts,
@@ -19,10 +19,14 @@ from ballast.stages.report.content import (
     split_line,
 )
 
+_MD_ESCAPES = str.maketrans({c: "\\" + c for c in "\\<>&|`"})
+
 
 def _md(text: str) -> str:
-    """Text safe inside a Markdown table cell or paragraph: HTML escaped, pipes escaped."""
-    return E(" ".join(str(text).split())).replace("|", "\\|")
+    """Text safe inside a Markdown table cell or paragraph: the characters that would start
+    raw HTML, an entity, a cell or a code span are backslash-escaped (CommonMark: any ASCII
+    punctuation may be), so a viewer shows them as written ("<=", "don't") and runs no HTML."""
+    return " ".join(str(text).split()).translate(_MD_ESCAPES)
 
 
 def render_markdown(inp: ReportInputs) -> str:

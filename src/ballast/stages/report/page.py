@@ -81,6 +81,13 @@ DASHED = ("base nDCG", "tuned nDCG")
 CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:"
 
 
+
+def _code(text: str) -> str:
+    """Escaped text with its `code spans` set as <code> (a command the reader may type)."""
+    import re
+
+    return re.sub(r"`([^`]+)`", r"<code>\1</code>", E(text))
+
 def _metric_table(info: dict[str, Any], metrics: list[str], pct: str) -> str:
     rows = [
         "<table><tr><th class=l>metric</th><th>base</th><th>tuned</th><th>difference</th>"
@@ -149,8 +156,8 @@ def render_html(inp: ReportInputs) -> str:
         "<h2>Verdict</h2>",
     ]
     words = _gate_words(gate)
-    out.append(f'<div class="verdict {"pass" if passed else "fail"}">{E(words[0])}</div>')
-    out.append("<ul>" + "".join(f"<li>{E(w)}</li>" for w in words[1:]) + "</ul>")
+    out.append(f'<div class="verdict {"pass" if passed else "fail"}">{_code(words[0])}</div>')
+    out.append("<ul>" + "".join(f"<li>{_code(w)}</li>" for w in words[1:]) + "</ul>")
     for note in inp.notes:
         out.append(f'<p class="muted">{E(note)}</p>')
     backing = provenance_lines(inp)
@@ -187,17 +194,21 @@ def render_html(inp: ReportInputs) -> str:
         c = info.get("comparisons", {}).get(f"{TUNED}_vs_{BASE}", {})
         for m in shown:
             if m in c:
-                forest.append((f"{s} {m}", c[m]["mean_diff"], c[m]["ci_low"], c[m]["ci_high"]))
+                forest.append((f"{s} {m}", c[m]["mean_diff"], c[m]["ci_low"], c[m]["ci_high"],
+                               c[m].get("p_value", 1.0)))  # fmt: skip
     out.append('<div class="charts">')
     out.append(
         f"<figure>{bars_svg(groups, f'{primary} per split')}<figcaption>{E(primary)} per split: "
         f"each model's mean with its {E(pct)} bootstrap interval"
         "</figcaption></figure>"
     )
+    alpha = float((inp.gate or {}).get("alpha", 0.05))
     if forest:
         out.append(
-            f"<figure>{forest_svg(forest, 'tuned minus base')}<figcaption>tuned minus base, with "
-            f"the {E(pct)} paired interval; green: the interval lies above zero</figcaption>"
+            f"<figure>{forest_svg(forest, 'tuned minus base', alpha)}<figcaption>tuned minus "
+            f"base, with the {E(pct)} paired interval; green (red): the interval lies above "
+            f"(below) zero and the randomization test agrees, p &le; {alpha:g}; grey: no "
+            "difference shown</figcaption>"
             "</figure>"
         )
     out.append("</div>")

@@ -401,7 +401,9 @@ def train_model(
         "seconds": round(seconds, 2),
         "pairs_per_second": round(n_examples * cfg.epochs / max(seconds, 1e-9), 3),
         "batch_size_per_process": cfg.batch_size,
-        "final_loss": round(float(result.training_loss), 6),
+        # the mean over all steps (the trainer's training_loss), and the last logged step's
+        "mean_loss": round(float(result.training_loss), 6),
+        "final_loss": history[-1]["loss"] if history else round(float(result.training_loss), 6),
         "loss_history": history,
         "resumed_from": Path(resume).name if resume else None,
         "matryoshka_dims": list(cfg.matryoshka_dims),
