@@ -136,3 +136,18 @@ def test_run_writes_the_report_and_still_refuses_export(
     assert stages["export"]["skipped"] is True and "refused" in stages["export"]["summary"]
     assert doc["bundle"] is None and not (run / "bundle").exists()
     assert "did NOT pass" in (run / "report.html").read_text("utf-8")
+
+
+def test_axes_have_round_ticks_and_the_page_reads_in_order(tmp_path: Path) -> None:
+    from ballast.stages.report.charts import nice_ticks
+
+    # common charting practice: ticks at 1, 2, 2.5 or 5 times a power of ten
+    assert nice_ticks(0.5, 1.0) == [0.5, 0.6, 0.7, 0.8, 0.9, 1.0]
+    assert nice_ticks(0.9, 1.0) == [0.9, 0.92, 0.94, 0.96, 0.98, 1.0]
+    assert nice_ticks(0.0, 1.0) == [0.0, 0.2, 0.4, 0.6, 0.8, 1.0]
+    html = render_html(_inputs(tmp_path))
+    assert ">0.62<" not in html and ">0.88<" not in html
+    # the glossary of splits comes with the verdict; the data before the example cards
+    assert html.index("The splits") < html.index("Base and tuned, per split")
+    assert html.index("Data: synthesis") < html.index("Per query: wins and losses")
+    assert "gated: must gain" in html

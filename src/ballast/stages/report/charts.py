@@ -5,6 +5,7 @@ byte."""
 from __future__ import annotations
 
 import html
+import math
 from collections.abc import Sequence
 
 BASE, TUNED = "base", "tuned"
@@ -27,16 +28,32 @@ def _svg(width: int, height: int, title: str, body: list[str]) -> str:
     )
 
 
+def nice_ticks(lo: float, hi: float, most: int = 6) -> list[float]:
+    """Round tick values between ``lo`` and ``hi``: multiples of 1, 2, 2.5 or 5 times a power
+    of ten, at most ``most`` of them (common charting practice)."""
+    if hi <= lo:
+        return [lo]
+    raw = (hi - lo) / (most - 1)
+    mag = 10 ** math.floor(math.log10(raw))
+    step = next(m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw)
+    first = math.ceil(lo / step - 1e-9) * step
+    n = int(math.floor((hi - first) / step + 1e-9)) + 1
+    return [round(first + i * step, 10) for i in range(n)]
+
+
 def _axis_y(x0: float, y0: float, h: float, lo: float, hi: float, w: float) -> list[str]:
     out = []
-    for i in range(5):
-        v = lo + (hi - lo) * i / 4
-        y = y0 + h - h * i / 4
+    ticks = nice_ticks(lo, hi)
+    step = ticks[1] - ticks[0] if len(ticks) > 1 else 1.0
+    digits = max(0, -math.floor(math.log10(step) + 1e-9)) + (1 if step * 10 ** max(
+        0, -math.floor(math.log10(step) + 1e-9)) % 1 else 0)  # fmt: skip
+    for v in ticks:
+        y = y0 + h - h * (v - lo) / (hi - lo)
         out.append(
             f'<line x1="{_f(x0)}" y1="{_f(y)}" x2="{_f(x0 + w)}" y2="{_f(y)}" '
             'stroke="#e2e8f0"/>'
             f'<text x="{_f(x0 - 6)}" y="{_f(y + 4)}" text-anchor="end" class="tick">'
-            f"{v:.2f}</text>"
+            f"{v:.{digits}f}</text>"
         )
     return out
 
@@ -53,24 +70,32 @@ def _legend(x: float, y: float, items: list[tuple[str, str]]) -> list[str]:
 
 
 def bars_svg(groups: list[tuple[str, list[tuple[str, float, float, float]]]], title: str) -> str:
-    """Grouped bars (label, [(model, mean, low, high)]) on [0, 1] with interval whiskers."""
+    """Grouped bars (label, [(model, mean, low, high)]) with interval whiskers. The axis starts
+    at the tenth below the lowest interval (not at 0), so differences of a few hundredths show;
+    its first tick says where it starts."""
     n = sum(len(g) for _, g in groups)
     gap = max(40, 7 * max([len(label) for label, _ in groups] + [0]) - 58)
     width = max(360, int(70 + n * 32 + len(groups) * gap))
     height, x0, y0, h = 272, 50.0, 24.0, 190.0
-    body = _axis_y(x0, y0, h, 0.0, 1.0, width - x0 - 10)
+    lows = [min(mean, lo) for _, items in groups for _, mean, lo, _ in items]
+    floor = max(0.0, min(0.9, math.floor(min(lows, default=0.0) * 10) / 10))
+    body = _axis_y(x0, y0, h, floor, 1.0, width - x0 - 10)
+
+    def level(v: float) -> float:
+        return (max(floor, min(1.0, v)) - floor) / (1.0 - floor)
+
     x = x0 + 12
     for label, items in groups:
         start = x
         for model, mean, lo, hi in items:
-            top = y0 + h * (1 - max(0.0, min(1.0, mean)))
+            top = y0 + h * (1 - level(mean))
             colour = COLOURS.get(model, "#4a5568")
             body.append(
                 f'<rect x="{_f(x)}" y="{_f(top)}" width="26" height="{_f(y0 + h - top)}" '
                 f'fill="{colour}"><title>{E(model)} {E(label)}: {mean:.4f} '
                 f"[{lo:.4f}, {hi:.4f}]</title></rect>"
             )
-            ylo, yhi = y0 + h * (1 - max(0.0, lo)), y0 + h * (1 - min(1.0, hi))
+            ylo, yhi = y0 + h * (1 - level(lo)), y0 + h * (1 - level(hi))
             cx = x + 13
             body.append(
                 f'<path d="M{_f(cx)} {_f(ylo)}V{_f(yhi)}M{_f(cx - 5)} {_f(ylo)}H{_f(cx + 5)}'

@@ -180,6 +180,13 @@ def render_html(inp: ReportInputs) -> str:
         )
 
     splits = _split_names(inp)
+    out.append("<h3>The splits</h3><table><tr><th class=l>split</th><th>queries</th>"
+               "<th class=l>what it holds, and how the gate used it</th></tr>")  # fmt: skip
+    for s in splits:
+        n = metrics["splits"][s].get("n_queries", 0)
+        out.append(f"<tr><td class=l>{E(s)}</td><td>{n}</td>"
+                   f"<td class=l>{E(split_line(s, gate))}</td></tr>")  # fmt: skip
+    out.append("</table>")
     out.append("<h2>Base and tuned, per split</h2>")
     groups, forest = [], []
     for s in splits:
@@ -234,15 +241,14 @@ def render_html(inp: ReportInputs) -> str:
         '<p class="muted">Recomputed from the stored TREC run files and qrels (no re-encoding): '
         "recall@k and nDCG@k for k = 1 to the depth of the run.</p><div class=charts>"
     )
-    any_curve = False
-    for s in splits:
-        cv = _curves(inp, s)
-        if cv is None:
-            continue
-        any_curve = True
+    curves = {s: cv for s in splits if (cv := _curves(inp, s)) is not None}
+    any_curve = bool(curves)
+    # one y range for every panel, so panels compare at a glance
+    low = min((v for cv in curves.values() for m in (BASE, TUNED) for key in ("recall", "ndcg")
+               for v in cv[m][key]), default=0.0)  # fmt: skip
+    y_range = (max(0.0, math.floor(low * 10) / 10), 1.0)
+    for s, cv in curves.items():
         ks = [float(k) for k in range(1, len(cv[BASE]["recall"]) + 1)]
-        low = min(v for m in (BASE, TUNED) for key in ("recall", "ndcg") for v in cv[m][key])
-        y_range = (max(0.0, math.floor(low * 10) / 10), 1.0)
         title = f"{s}: recall and nDCG against k"
         series = [
             ("base recall", COLOURS[BASE], ks, cv[BASE]["recall"]),
@@ -256,6 +262,17 @@ def render_html(inp: ReportInputs) -> str:
         )
     if not any_curve:
         out.append('<p class="muted">No run files or qrels found for any split.</p>')
+    out.append("</div>")
+
+    out.append("<h2>Data: synthesis, filtering and mining</h2>")
+    counts = _counts(inp)
+    if not counts:
+        out.append('<p class="muted">No stage summaries found.</p>')
+    out.append("<div class=charts>")
+    for stage, rows in counts:
+        out.append(f"<div><h3>{E(stage)}</h3><table>")
+        out.extend(f"<tr><td class=l>{E(k)}</td><td>{E(v)}</td></tr>" for k, v in rows)
+        out.append("</table></div>")
     out.append("</div>")
 
     out.append(f"<h2>Per query: wins and losses on {E(primary)}</h2><div class=charts>")
@@ -279,17 +296,6 @@ def render_html(inp: ReportInputs) -> str:
             "".join(_example_html(inp, e, primary) for e in wins)
             or '<p class="muted">No query got better.</p>'
         )
-
-    out.append("<h2>Data: synthesis, filtering and mining</h2>")
-    counts = _counts(inp)
-    if not counts:
-        out.append('<p class="muted">No stage summaries found.</p>')
-    out.append("<div class=charts>")
-    for stage, rows in counts:
-        out.append(f"<div><h3>{E(stage)}</h3><table>")
-        out.extend(f"<tr><td class=l>{E(k)}</td><td>{E(v)}</td></tr>" for k, v in rows)
-        out.append("</table></div>")
-    out.append("</div>")
 
     out.append("<h2>Training loss</h2>")
     hist = (inp.train or {}).get("loss_history") or []
