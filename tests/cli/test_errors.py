@@ -189,3 +189,33 @@ def test_a_stage_command_says_where_it_wrote(tmp_path: Path) -> None:
     r = invoke("ingest", str(write_config(tmp_path, docs)), "-q")
     assert r.exit_code == 0
     assert f"wrote {tmp_path / 'run' / 'passages.jsonl'}" in r.stdout
+
+
+def test_an_unreadable_document_is_named_not_a_traceback(tmp_path: Path) -> None:
+    # run without root's power to read any file (Linux capabilities, setpriv from util-linux)
+    import os
+    import shutil
+    import subprocess
+    import sys
+
+    if os.geteuid() != 0 or not shutil.which("setpriv"):
+        pytest.skip("needs root and setpriv to drop the capability to read any file")
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "a.txt").write_text("The press is rinsed after each batch of apples.\n", "utf-8")
+    (docs / "b.txt").write_text("The chiller keeps the juice cold during fermentation.\n", "utf-8")
+    (docs / "a.txt").chmod(0)
+    cfg = write_config(tmp_path, docs)
+    drop = ["setpriv", "--bounding-set=-dac_override,-dac_read_search",
+            "--inh-caps=-dac_override,-dac_read_search"]  # fmt: skip
+
+    def ballast(*args: str) -> subprocess.CompletedProcess:
+        return subprocess.run([*drop, sys.executable, "-m", "ballast", "ingest", str(cfg), *args],
+                              capture_output=True, text=True, timeout=120)  # fmt: skip
+
+    r = ballast("-q")
+    assert r.returncode == 2 and "a.txt: cannot read the file" in r.stderr
+    assert "Traceback" not in r.stderr
+    r = ballast("-q", "--set", "ingest.on_error=skip")
+    assert r.returncode == 0, r.stderr
+    assert '"file": "a.txt"' in (tmp_path / "run" / "skipped.jsonl").read_text("utf-8")

@@ -130,6 +130,8 @@ def read_text(path: str | Path) -> str:
         raise InputError("file not found", path=path) from None
     except IsADirectoryError:
         raise InputError("expected a file, found a folder", path=path) from None
+    except OSError as exc:  # no permission, an I/O error
+        raise InputError(f"cannot read the file: {exc.strerror or exc}", path=path) from None
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -229,17 +231,33 @@ def sha256_file(path: str | Path) -> str:
     return h.hexdigest()
 
 
-def fingerprint_tree(path: str | Path) -> str:
-    """A hash of every file under ``path`` (relative names and contents), or of one file."""
+def fingerprint_tree(path: str | Path, *, skip_unreadable: bool = False) -> str:
+    """A hash of every file under ``path`` (relative names and contents), or of one file. A
+    file or folder that cannot be read is an InputError naming it (exit 2), not a traceback;
+    with ``skip_unreadable`` such a file counts by its name alone (ingest.on_error = "skip")."""
     path = Path(path)
+
+    def digest(f: Path) -> str:
+        try:
+            return sha256_file(f)
+        except OSError as exc:
+            if skip_unreadable:
+                return "unreadable"
+            raise InputError(f"cannot read the file: {exc.strerror or exc}", path=f) from None
+
     if path.is_file():
-        return sha256_file(path)
+        return digest(path)
     h = hashlib.sha256()
-    for f in sorted(p for p in path.rglob("*") if p.is_file()):
+    try:
+        files = sorted(p for p in path.rglob("*") if p.is_file())
+    except OSError as exc:
+        raise InputError(f"cannot list the folder: {exc.strerror or exc}",
+                         path=exc.filename or path) from None  # fmt: skip
+    for f in files:
         rel = f.relative_to(path).as_posix()
         if any(part.startswith(".") for part in f.relative_to(path).parts):
             continue
-        h.update(rel.encode() + b"\0" + sha256_file(f).encode() + b"\n")
+        h.update(rel.encode() + b"\0" + digest(f).encode() + b"\n")
     return h.hexdigest()
 
 

@@ -34,11 +34,20 @@ def ingest(run: Run) -> dict[str, Any]:
     return stats
 
 
+def _docs_fingerprint(run: Run) -> str:
+    from ballast.io.files import fingerprint_tree
+
+    docs = Path(run.cfg.ingest.docs)
+    if not docs.exists():
+        return file_fingerprint(docs)  # "missing": the stage itself says what is wrong
+    return fingerprint_tree(docs, skip_unreadable=run.cfg.ingest.on_error == "skip")
+
+
 STAGE = Stage(
     "ingest",
     ingest,
     keys=("ingest",),
     outputs=("passages.jsonl", "skipped.jsonl"),
-    external=lambda run: {"docs": file_fingerprint(run.cfg.ingest.docs)},
+    external=lambda run: {"docs": _docs_fingerprint(run)},
     base_model=True,  # its tokenizer cuts the passages
 )
