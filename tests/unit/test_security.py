@@ -65,3 +65,39 @@ def test_bundle_names_cannot_escape(name: str) -> None:
 def test_export_version_is_validated(tmp_path: Path, version: str) -> None:
     with pytest.raises(ConfigError, match="export.version"):
         load_config(None, [f'export.version="{version}"'])
+
+
+def _base_copy(tmp_path: Path) -> Path:
+    import shutil
+
+    src = resolve_model("packaged:all-MiniLM-L6-v2")
+    return Path(shutil.copytree(src, tmp_path / "base"))
+
+
+def test_a_truncated_weights_file_is_refused(tmp_path: Path) -> None:
+    # the safetensors format: 8-byte header length, JSON header, then the tensors' bytes
+    d = _base_copy(tmp_path)
+    w = d / "model.safetensors"
+    w.write_bytes(w.read_bytes()[: w.stat().st_size // 2])
+    with pytest.raises(InputError, match="truncated"):
+        check_model_folder(d)
+    w.write_bytes(b"\x05\x00")
+    with pytest.raises(InputError, match="not a valid safetensors"):
+        check_model_folder(d)
+
+
+def test_pickled_weights_beside_a_decoy_safetensors_are_refused(tmp_path: Path) -> None:
+    d = _base_copy(tmp_path)
+    (d / "model.safetensors").rename(d / "decoy.safetensors")
+    (d / "pytorch_model.bin").write_bytes(b"\x80\x04pickle")
+    with pytest.raises(InputError, match="pickled: pytorch_model.bin"):
+        check_model_folder(d)
+
+
+def test_a_module_type_from_elsewhere_is_refused(tmp_path: Path) -> None:
+    d = _base_copy(tmp_path)
+    mods = json.loads((d / "modules.json").read_text("utf-8"))
+    mods[1]["type"] = "evil_package.Pooling"
+    (d / "modules.json").write_text(json.dumps(mods), "utf-8")
+    with pytest.raises(InputError, match="evil_package.Pooling"):
+        check_model_folder(d)

@@ -80,6 +80,70 @@ def check_model_folder(path: Path) -> None:
                 "ballast does not run code shipped with models",
                 path=cfg,
             )
+        here = cfg.parent
+        is_transformer = isinstance(data, dict) and "model_type" in data
+        if is_transformer and not (
+            (here / "model.safetensors").is_file()
+            or (here / "model.safetensors.index.json").is_file()
+        ):
+            others = [p.name for p in here.iterdir() if p.suffix in PICKLED]
+            raise InputError(
+                "the model's weights are not in model.safetensors"
+                + (f" (they are pickled: {others[0]})" if others else "")
+                + "; ballast loads safetensors only, because unpickling can run arbitrary code",
+                path=here,
+            )
+    _check_modules(path)
+    for w in weights:
+        check_safetensors(w)
+
+
+def check_safetensors(path: Path) -> None:
+    """A .safetensors file whole and well formed: an 8-byte little-endian header length, a JSON
+    header, and tensor data up to the largest end offset the header names (the format as the
+    safetensors project documents it). A truncated or damaged file is an InputError."""
+    import struct
+
+    try:
+        size = path.stat().st_size
+        with open(path, "rb") as fh:
+            head = fh.read(8)
+            n = struct.unpack("<Q", head)[0] if len(head) == 8 else -1
+            if n < 2 or 8 + n > size:
+                raise ValueError("no header")
+            header = json.loads(fh.read(n).decode("utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read the weights: {exc.strerror or exc}", path=path) from None
+    except (ValueError, UnicodeDecodeError, struct.error):
+        raise InputError("not a valid safetensors file (damaged or not safetensors)",
+                         path=path) from None  # fmt: skip
+    ends = [t["data_offsets"][1] for k, t in header.items()
+            if k != "__metadata__" and isinstance(t, dict) and "data_offsets" in t]  # fmt: skip
+    if 8 + n + max(ends, default=0) > size:
+        raise InputError(
+            f"the weights file is truncated: {size} bytes, the header needs "
+            f"{8 + n + max(ends)}",
+            path=path,
+        )
+
+
+def _check_modules(path: Path) -> None:
+    """modules.json names only sentence-transformers' own modules: a type from anywhere else
+    would be imported as code named by the model folder."""
+    for mj in sorted(path.rglob("modules.json")):
+        try:
+            mods = json.loads(mj.read_text("utf-8"))
+        except (UnicodeDecodeError, json.JSONDecodeError):
+            raise InputError("modules.json is not valid JSON", path=mj) from None
+        for m in mods if isinstance(mods, list) else []:
+            kind = m.get("type", "") if isinstance(m, dict) else ""
+            if not (isinstance(kind, str) and kind.startswith("sentence_transformers.")):
+                raise InputError(
+                    f"module type {kind!r} is not one of sentence-transformers' own; ballast "
+                    "does not import code a model folder names",
+                    path=mj,
+                    field="type",
+                )
 
 
 def model_fingerprint(path: Path) -> str:
