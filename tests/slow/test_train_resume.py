@@ -56,5 +56,9 @@ def test_sigkill_after_checkpoint_then_resume(tmp_path: Path) -> None:
     assert again.returncode in (0, 1, 3), again.stderr  # 3: passed on synthetic queries only
     stats = json.loads((run / "train.json").read_text("utf-8"))
     assert stats["resumed_from"] in complete  # the last complete one, not the half-written one
+    # the loss curve keeps the steps trained before the kill (from the checkpoint's state)
+    steps = [h["step"] for h in stats["loss_history"]]
+    assert steps == sorted(set(steps)) and steps[0] <= int(stats["resumed_from"].split("-")[1])
+    assert steps[-1] == stats["steps"] or steps[-1] > int(stats["resumed_from"].split("-")[1])
     assert (run / "train.done.json").is_file() and (run / "model" / "model.safetensors").is_file()
     assert not (run / ".train-work").exists()

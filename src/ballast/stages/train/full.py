@@ -219,6 +219,18 @@ def _batching(
     return share, batches.sampler(lengths, texts, no_duplicates=no_duplicates)
 
 
+def _logged_before(log: list[dict], later: list[dict], key: str, name: str) -> list[dict]:
+    """Entries of the trainer's ``log_history`` (restored from a checkpoint) that came before
+    the first entry logged in this process, in the form the callbacks record."""
+    first = later[0]["step"] if later else float("inf")
+    return [
+        {"step": int(e["step"]), "epoch": round(float(e.get("epoch") or 0), 4),
+         name: round(float(e[key]), 6)}  # fmt: skip
+        for e in log
+        if key in e and "step" in e and e["step"] < first
+    ]
+
+
 def _merge_lora(model: Any) -> None:
     inner = model[0]
     inner.model = inner.model.merge_and_unload()
@@ -376,6 +388,11 @@ def train_model(
         resume = str(last) if last else None
     result = trainer.train(resume_from_checkpoint=resume)
     seconds = time.perf_counter() - started
+    if resume:  # the curve before the checkpoint comes back from the trainer's saved state
+        history[:0] = _logged_before(trainer.state.log_history, history, "loss", "loss")
+        if dev is not None:
+            dev_history[:0] = _logged_before(trainer.state.log_history, dev_history,
+                                             f"eval_dev_{dev.metric}", dev.metric)  # fmt: skip
     if cfg.mode == "lora":
         _merge_lora(model)
     if trainer.is_world_process_zero():
