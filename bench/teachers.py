@@ -95,7 +95,7 @@ def one(cfg_path: Path, folder: Path, sets: list[str], first: Path | None) -> di
         "splits": splits,
         "gate": read("gate.json")["summary"],
         "mix": (train.get("mix") or {}).get("weight"),
-        "train_seconds": train.get("seconds"),
+        "train_seconds": read("train.done.json")["summary"].get("seconds"),
         "seconds": round(seconds, 1),
         "ran": [s["stage"] for s in stages if not s.get("skipped")],
     }

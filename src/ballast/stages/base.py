@@ -127,3 +127,18 @@ def guard_files(run: Run) -> dict[str, str]:
     if not g.enabled:
         return {}
     return {f"guard.{k}": file_fingerprint(getattr(g, k)) for k in ("queries", "qrels", "passages")}
+
+
+# Keys that hold a duration or a rate: they differ between two runs of the same inputs, so
+# they live in the done markers (the stage summaries) and never in a stage's output files.
+TIMING_KEYS = frozenset({"seconds", "pairs_per_second", "warmup_seconds_per_step",
+                         "estimated_minutes", "load_seconds"})  # fmt: skip
+
+
+def without_timings(obj: Any) -> Any:
+    """``obj`` with every ``TIMING_KEYS`` entry removed, at any depth."""
+    if isinstance(obj, dict):
+        return {k: without_timings(v) for k, v in obj.items() if k not in TIMING_KEYS}
+    if isinstance(obj, list):
+        return [without_timings(v) for v in obj]
+    return obj

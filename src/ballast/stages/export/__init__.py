@@ -86,7 +86,7 @@ def export(run: Run) -> dict[str, Any]:
             "seed": run.cfg.seed,
             **{
                 k: train_stats.get(k)
-                for k in ("pairs", "steps", "seconds", "hard_negatives_per_pair")
+                for k in ("pairs", "steps", "hard_negatives_per_pair")
             },
             # the base/tuned interpolation kept by the safety net (None: the tuned model as
             # trained)

@@ -13,6 +13,7 @@ import numpy as np
 
 from ballast.core.metrics import ndcg_at_k, recall_at_k
 from ballast.core.stats import paired_bootstrap_ci
+from ballast.stages.base import without_timings
 from ballast.stages.report.charts import BASE, TUNED
 
 SHOWN = ("ndcg@10", "mrr@10", "recall@10")
@@ -249,7 +250,9 @@ def _counts(inp: ReportInputs) -> list[tuple[str, list[tuple[str, str]]]]:
     for stage in ("ingest", "synth", "split", "mine", "teach", "train"):
         summary = inp.stages.get(stage)
         if summary:
-            rows = _flatten("", {k: v for k, v in summary.items() if k != "loss_history"})
+            # no timings: the report of a rerun is byte-identical (they are in the done markers)
+            rows = _flatten("", without_timings({k: v for k, v in summary.items()
+                                                 if k != "loss_history"}))  # fmt: skip
             out.append((stage, rows))
     return out
 

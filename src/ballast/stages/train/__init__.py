@@ -11,7 +11,7 @@ from ballast.config.record import section_dict
 from ballast.core.errors import StageError
 from ballast.core.records import training_positive
 from ballast.io.files import atomic_dir, read_jsonl, write_json
-from ballast.stages.base import Run, Stage
+from ballast.stages.base import Run, Stage, without_timings
 
 
 def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -> Any:
@@ -136,7 +136,7 @@ def train(run: Run) -> dict[str, Any]:
     stats["padded_negatives"] = padded
     stats["teacher"] = _teacher_summary(run, taught)
     stats["processes"] = world
-    write_json(run.path("train.json"), stats)
+    write_json(run.path("train.json"), without_timings(stats))  # timings: train.done.json
     return {k: v for k, v in stats.items() if k != "loss_history"}
 
 
