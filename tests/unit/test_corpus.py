@@ -465,3 +465,22 @@ def test_atomic_dir_on_exception_keeps_previous(tmp_path: Path) -> None:
     with pytest.raises(RuntimeError), atomic_dir(tmp_path / "fresh"):
         raise RuntimeError("boom")
     assert not (tmp_path / "fresh").exists()
+
+
+def test_an_over_long_sentence_is_cut_at_spaces_before_it_is_tokenized() -> None:
+    from ballast.core.text import cap_length
+
+    text = "alpha beta gamma delta epsilon"
+    assert cap_length(text, 100) == [text]
+    pieces = cap_length(text, 11)
+    assert pieces == ["alpha beta", "gamma", "delta", "epsilon"]
+    assert " ".join(pieces) == text and all(len(p) <= 11 for p in pieces)
+    assert cap_length("x" * 25, 10) == ["x" * 10, "x" * 10, "x" * 5]  # one long word: cut inside
+
+
+def test_a_file_of_one_line_without_punctuation_becomes_bounded_passages(tmp_path: Path) -> None:
+    words = " ".join(f"w{i}" for i in range(20_000))  # 20,000 words, no sentence end
+    make_docs(tmp_path, {"a.txt": words})
+    res = ingest(tmp_path, IngestConfig(max_tokens=40, overlap_tokens=0, min_tokens=1), count)
+    assert all(p["meta"]["tokens"] <= 40 for p in res.passages)
+    assert " ".join(p["text"] for p in res.passages) == words  # nothing lost, nothing repeated

@@ -31,8 +31,11 @@ def collapse(text: str) -> str:
     return " ".join(normalise(text).split())
 
 
+_SPACES = re.compile(r"\s+")
+
+
 def split_sentences(paragraph: str) -> list[str]:
-    text = " ".join(paragraph.split())
+    text = _SPACES.sub(" ", paragraph).strip()  # no list of every word: bounded memory
     cuts = [m.end() for m in _SENTENCE_END.finditer(text)]
     pieces = [text[a:b] for a, b in zip([0, *cuts], [*cuts, len(text)], strict=True)]
     return [s.strip() for s in pieces if s.strip()]
@@ -74,3 +77,22 @@ def copy_overlap(query: str, passage: str, n: int = 3) -> float:
     if not qg:
         return 0.0
     return len(qg & ngrams(p, n)) / len(qg)
+
+
+def cap_length(sentence: str, limit: int) -> list[str]:
+    """``sentence`` cut at spaces into pieces of at most ``limit`` characters (a word longer
+    than ``limit`` is cut inside), so no later step holds a whole over-long "sentence" (a file
+    of one line, or with no punctuation) at once."""
+    if len(sentence) <= limit:
+        return [sentence]
+    out, start = [], 0
+    while start < len(sentence):
+        end = min(start + limit, len(sentence))
+        if end < len(sentence):
+            space = sentence.rfind(" ", start + 1, end + 1)
+            end = space if space > start else end
+        piece = sentence[start:end].strip()
+        if piece:
+            out.append(piece)
+        start = end
+    return out

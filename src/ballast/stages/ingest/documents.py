@@ -18,7 +18,7 @@ from typing import Any
 
 from ballast.config import IngestConfig
 from ballast.core.errors import InputError
-from ballast.core.text import collapse, normalise, passage_id, split_sentences
+from ballast.core.text import cap_length, collapse, normalise, passage_id, split_sentences
 from ballast.io.files import read_jsonl, read_text, require_str
 
 
@@ -300,12 +300,27 @@ def _read_file(path: Path, rel: str, cfg: IngestConfig) -> Iterator[Document]:
 Counter = Callable[[list[str]], list[int]]
 
 
+# A "sentence" longer than max_tokens x this many characters is cut at spaces before it is
+# tokenized (no real sentence is that long; a file of one line or without punctuation is)
+CHARS_PER_TOKEN_CAP = 16
+COUNT_CHARS = 200_000  # characters tokenized at a time: the tokenizer's memory stays bounded
+
+
 def token_counter(tokenizer: Any) -> Counter:
     def count(texts: list[str]) -> list[int]:
-        if not texts:
-            return []
-        enc = tokenizer(texts, add_special_tokens=False)["input_ids"]
-        return [len(x) for x in enc]
+        out: list[int] = []
+        batch: list[str] = []
+        size = 0
+        for t in [*texts, None]:
+            if t is None or (batch and size + len(t) > COUNT_CHARS):
+                if batch:
+                    enc = tokenizer(batch, add_special_tokens=False)["input_ids"]
+                    out.extend(len(x) for x in enc)
+                batch, size = [], 0
+            if t is not None:
+                batch.append(t)
+                size += len(t)
+        return out
 
     return count
 
@@ -382,8 +397,10 @@ def iter_passages(
         index = 0
         for heading, paras in d.sections:
             sentences: list[str] = []
+            limit = cfg.max_tokens * CHARS_PER_TOKEN_CAP
             for p in paras:
-                sentences.extend(split_sentences(p))
+                for sentence in split_sentences(p):
+                    sentences.extend(cap_length(sentence, limit))
             lens = count(sentences)
             flat, flat_lens = [], []
             for s, n in zip(sentences, lens, strict=True):
