@@ -81,22 +81,6 @@ def bare(base: Path, ex: list[dict], work: Path, bf16: bool) -> float:
     return time.perf_counter() - started
 
 
-def matmul_rate(bf16: bool) -> float:
-    import torch
-
-    dtype = torch.bfloat16 if bf16 else torch.float32
-    g = torch.Generator().manual_seed(SEED)
-    a = torch.randn(2048, 2048, generator=g).to(dtype)
-    b = torch.randn(2048, 2048, generator=g).to(dtype)
-    torch.matmul(a, b)
-    best = float("inf")
-    for _ in range(5):
-        t = time.perf_counter()
-        torch.matmul(a, b)
-        best = min(best, time.perf_counter() - t)
-    return 2 * 2048**3 / best
-
-
 def main(argv: list[str] | None = None) -> int:
     from ballast.config import TrainConfig
     from ballast.models.loading import load_encoder, load_tokenizer
@@ -127,7 +111,9 @@ def main(argv: list[str] | None = None) -> int:
             stats = train_model(base, ex, cfg, seed=SEED, out_dir=t / mode, work_dir=t / f"w{mode}")
             seconds[f"ballast, batching = {mode}"] = stats["seconds"]
             pad = stats["pad_share"]
-    peak = matmul_rate(bf16)
+    from bench.train_speed import matmul_flops
+
+    peak = matmul_flops(bf16)
     ref = seconds["bare sentence-transformers trainer"]
     print(f"machine: {cpu()}; dtype {'bfloat16' if bf16 else 'float32'}")
     print(f"{len(ex)} pairs (query, positive, one mined negative), {tokens} real tokens; "

@@ -50,3 +50,13 @@ def make_demo_slice(tmp_path: Path, n_docs: int = 4) -> tuple[Path, Path]:
             if line.strip()]
     q.write_text("".join(json.dumps(r) + "\n" for r in rows if r["doc_id"] in names), "utf-8")
     return docs, q
+
+
+def tiny_docs(root: Path, n_docs: int = 3, chars: int = 2500) -> Path:
+    """The first ``n_docs`` demo documents cut to ``chars`` characters, in ``root/docs``: a
+    project small enough for a slow test to train on in seconds."""
+    docs = root / "docs"
+    docs.mkdir(parents=True)
+    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:n_docs]:
+        (docs / name).write_text((DEMO / "docs" / name).read_text("utf-8")[:chars], "utf-8")
+    return docs

@@ -12,7 +12,7 @@ import pytest
 from ballast import pipeline
 from ballast.config import load_config
 from ballast.stages import Run
-from tests.conftest import DEMO, write_config
+from tests.conftest import tiny_docs, write_config
 
 pytestmark = pytest.mark.slow
 
@@ -20,10 +20,7 @@ pytestmark = pytest.mark.slow
 @pytest.fixture(scope="module")
 def project(tmp_path_factory) -> Path:
     root = tmp_path_factory.mktemp("budget")
-    docs = root / "docs"
-    docs.mkdir()
-    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:3]:
-        (docs / name).write_text((DEMO / "docs" / name).read_text("utf-8")[:2500], "utf-8")
+    docs = tiny_docs(root, 3)
     return write_config(
         root, docs, gate="min_queries = 2", ingest="max_tokens = 64\noverlap_tokens = 8",
         train="batch_size = 4\nmax_seq_length = 64\nmix_weights = []",

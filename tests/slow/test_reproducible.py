@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.conftest import DEMO, write_config
+from tests.conftest import tiny_docs, write_config
 
 pytestmark = pytest.mark.slow
 
@@ -25,10 +25,7 @@ def _files(root: Path) -> dict[str, bytes]:
 
 
 def test_a_rerun_is_byte_identical_but_for_the_done_markers(tmp_path: Path) -> None:
-    docs = tmp_path / "docs"
-    docs.mkdir()
-    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:3]:
-        (docs / name).write_text((DEMO / "docs" / name).read_text("utf-8")[:2500], "utf-8")
+    docs = tiny_docs(tmp_path, 3)
     cfg = write_config(
         tmp_path, docs, gate="min_queries = 2",
         ingest="max_tokens = 64\noverlap_tokens = 8", evaluate="bootstrap_resamples = 200",

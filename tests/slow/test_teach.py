@@ -16,7 +16,7 @@ import pytest
 from ballast import pipeline
 from ballast.config import load_config
 from ballast.stages import Run
-from tests.conftest import DEMO, write_config
+from tests.conftest import tiny_docs, write_config
 from tests.runfolder import base_model_dir
 
 pytestmark = pytest.mark.slow
@@ -25,10 +25,7 @@ TRAIN = "batch_size = 8\nmax_seq_length = 64\nmix_weights = []\nbatching = \"len
 
 
 def _project(tmp_path: Path, teach: str) -> Path:
-    docs = tmp_path / "docs"
-    docs.mkdir()
-    for name in sorted(p.name for p in (DEMO / "docs").glob("*.md"))[:5]:
-        (docs / name).write_text((DEMO / "docs" / name).read_text("utf-8")[:2500], "utf-8")
+    docs = tiny_docs(tmp_path, 5)
     return write_config(
         tmp_path, docs,
         split="test_fraction = 0.2\ndev_fraction = 0.2",
