@@ -45,3 +45,21 @@ def test_buckets_are_seeded_and_pad_less_than_random_batches() -> None:
     assert one != plan(cols.sum(axis=1), texts, 32, np.random.default_rng(4))
     rand = plan(cols.sum(axis=1), texts, 32, np.random.default_rng(3), buckets=False)
     assert pad_share(one, cols) < 0.5 * pad_share(rand, cols)
+
+
+def test_the_sort_key_is_the_column_that_leaves_the_fewest_pad_tokens() -> None:
+    from ballast.stages.train.batches import sort_key
+
+    rng = np.random.default_rng(5)
+    n = 640
+    # two independent passage columns: sorting by their sum keeps neither tight
+    cols = np.stack([rng.integers(5, 30, n), rng.integers(8, 129, n), rng.integers(60, 70, n)],
+                    axis=1)  # fmt: skip
+    texts = [{f"q{i}", f"p{i}", f"n{i}"} for i in range(n)]
+    key = sort_key(cols, texts, 32, 0)
+    assert key == 1  # the column with the widest spread of lengths
+    shares = {c: pad_share(plan(cols[:, c], texts, 32, np.random.default_rng([0, 0])), cols)
+              for c in range(3)}  # fmt: skip
+    assert shares[key] == min(shares.values())
+    by_sum = pad_share(plan(cols.sum(axis=1), texts, 32, np.random.default_rng([0, 0])), cols)
+    assert shares[key] < by_sum

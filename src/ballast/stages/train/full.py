@@ -199,24 +199,26 @@ def _estimate(
 
 def _batching(
     model: Any, columns: dict[str, list[str]], cfg: TrainConfig, *, seed: int, no_duplicates: bool
-) -> tuple[dict[str, float], Any]:
-    """The share of pad tokens of one epoch batched at random and by length (the same seed),
-    and the batch sampler for ``train.batching = "length"`` (None: the trainer's own)."""
+) -> tuple[dict[str, Any], Any]:
+    """The share of pad tokens of one epoch batched at random and by length (the same seed;
+    sorted by the column that leaves the fewest), and the batch sampler for ``train.batching
+    = "length"`` (None: the trainer's own)."""
     import numpy as np
 
     from ballast.stages.train import batches
 
     lengths = batches.token_lengths(model.tokenizer, columns, cfg.max_seq_length)
     texts = [set(row) for row in zip(*columns.values(), strict=True)]
-    share = {}
+    key = batches.sort_key(lengths, texts, cfg.batch_size, seed, no_duplicates=no_duplicates)
+    share: dict[str, Any] = {"sorted_by": list(columns)[key]}
     for name, by_length in (("random", False), ("length", True)):
         rng = np.random.default_rng([seed, 0])
-        planned = batches.plan(lengths.sum(axis=1), texts, cfg.batch_size, rng,
+        planned = batches.plan(lengths[:, key], texts, cfg.batch_size, rng,
                                no_duplicates=no_duplicates, buckets=by_length)  # fmt: skip
         share[name] = round(batches.pad_share(planned, lengths), 4)
     if cfg.batching != "length":
         return share, None
-    return share, batches.sampler(lengths, texts, no_duplicates=no_duplicates)
+    return share, batches.sampler(lengths, texts, key, no_duplicates=no_duplicates)
 
 
 def _logged_before(log: list[dict], later: list[dict], key: str, name: str) -> list[dict]:
