@@ -146,8 +146,23 @@ def test_axes_have_round_ticks_and_the_page_reads_in_order(tmp_path: Path) -> No
     assert nice_ticks(0.9, 1.0) == [0.9, 0.92, 0.94, 0.96, 0.98, 1.0]
     assert nice_ticks(0.0, 1.0) == [0.0, 0.2, 0.4, 0.6, 0.8, 1.0]
     html = render_html(_inputs(tmp_path))
+    html = html[html.index("</nav>"):]  # the page below its navigation links
     assert ">0.62<" not in html and ">0.88<" not in html
     # the glossary of splits comes with the verdict; the data before the example cards
     assert html.index("The splits") < html.index("Base and tuned, per split")
     assert html.index("Data: synthesis") < html.index("Per query: wins and losses")
     assert "gated: must gain" in html
+
+
+def test_the_page_has_navigation_and_collapsed_examples(tmp_path: Path) -> None:
+    html = render_html(_inputs(tmp_path))
+    assert '<nav class="muted"><a href="#s1">Verdict</a>' in html and '<h2 id="s1">' in html
+    assert html.count("<details>") == html.count("</details>") > 0
+
+
+def test_a_stage_summary_reads_as_words() -> None:
+    from ballast.cli.output import stage_line
+
+    line = stage_line({"stage": "split", "seconds": 1.25,
+                       "summary": {"documents": {"train": 11, "dev": 2}, "queries": 5}})  # fmt: skip
+    assert line == "split     done in 1.2s: documents (train 11, dev 2), queries 5"

@@ -48,13 +48,19 @@ def emit_json(obj: Any) -> None:
     sys.stdout.write(json.dumps(obj, indent=2, sort_keys=True, ensure_ascii=False) + "\n")
 
 
-def _fmt_summary(summary: Any) -> str:
+def _fmt_summary(summary: Any, depth: int = 0) -> str:
+    """A stage summary on one line: ``key value``, a nested table in parentheses, long lists
+    counted rather than listed."""
     if isinstance(summary, dict):
-        return ", ".join(
-            f"{k}={_fmt_summary(v)}"
-            for k, v in summary.items()
-            if not isinstance(v, (list,)) or len(v) < 8
-        )
+        parts = []
+        for k, v in summary.items():
+            if isinstance(v, list) and len(v) >= 8:
+                v = f"{len(v)} items"
+            text = _fmt_summary(v, depth + 1)
+            parts.append(f"{k} ({text})" if isinstance(v, dict) else f"{k} {text}")
+        return ", ".join(parts) or "-"
+    if isinstance(summary, list):
+        return "[" + ", ".join(_fmt_summary(v, depth + 1) for v in summary) + "]"
     return str(summary)
 
 

@@ -284,8 +284,10 @@ def render_html(inp: ReportInputs) -> str:
                 "each query's tuned minus base, sorted</figcaption></figure>"
             )
     out.append("</div>")
-    for s in splits:
+    for s in splits:  # collapsed: the page stays short, a click opens a split's examples
         losses, wins = _examples(inp, s, primary)
+        out.append(f"<details><summary>Split {E(s)}: {len(losses)} worst regressions, "
+                   f"{len(wins)} best wins</summary>")  # fmt: skip
         out.append(f"<h3>Split {E(s)}: worst regressions</h3>")
         out.append(
             "".join(_example_html(inp, e, primary) for e in losses)
@@ -296,6 +298,7 @@ def render_html(inp: ReportInputs) -> str:
             "".join(_example_html(inp, e, primary) for e in wins)
             or '<p class="muted">No query got better.</p>'
         )
+        out.append("</details>")
 
     out.append("<h2>Training loss</h2>")
     hist = (inp.train or {}).get("loss_history") or []
@@ -314,6 +317,23 @@ def render_html(inp: ReportInputs) -> str:
     else:
         out.append('<p class="muted">No loss history (train.json) found.</p>')
     out.append("</main></body></html>\n")
+    return _with_navigation(out)
+
+
+def _with_navigation(out: list[str]) -> str:
+    """Each section heading gets an id, and a line of links to them goes under the title."""
+    import re
+
+    links, n = [], 0
+    for i, part in enumerate(out):
+        m = re.fullmatch(r"<h2>(.*?)</h2>(.*)", part, re.S)
+        if m:
+            n += 1
+            out[i] = f'<h2 id="s{n}">{m.group(1)}</h2>{m.group(2)}'
+            links.append(f'<a href="#s{n}">{m.group(1)}</a>')
+    nav = '<nav class="muted">' + " · ".join(links) + "</nav>"
+    first = next(i for i, part in enumerate(out) if part.startswith("<h1>"))
+    out.insert(first + 1, nav)
     return "\n".join(out)
 
 
