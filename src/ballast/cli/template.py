@@ -111,7 +111,8 @@ check_depth = 20           # how many of the base model's results the check rera
 [train]
 epochs = 1
 batch_size = 32
-learning_rate = 2e-5
+learning_rate = 5e-5       # chosen on real dev questions (docs/training.md); choose yours on
+                           # your dev split (human_dev) if you have one
 warmup_ratio = 0.1
 max_seq_length = 128
 threads = 0                # 0 = torch's default
