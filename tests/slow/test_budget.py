@@ -37,6 +37,10 @@ def _train(cfg: Path, folder: Path, *sets: str) -> dict:
 def test_the_warm_up_changes_no_weight_and_a_cap_keeps_that_many(project: Path) -> None:
     plain = _train(project, project.parent / "plain")
     assert plain["estimate"] is None  # a short training starts at once
+    curve = json.loads((project.parent / "plain" / "train.json").read_text("utf-8"))
+    # final_loss is the last logged loss (it was the mean over training, named as the last)
+    assert plain["final_loss"] == curve["loss_history"][-1]["loss"]
+    assert "seconds" not in curve and "seconds" in plain  # timings: the done marker only
     timed = _train(project, project.parent / "timed", "train.minutes=10000")
     assert timed["estimate"]["pairs_kept"] == plain["pairs"]
     assert timed["estimate"]["warmup_seconds_per_step"] > 0

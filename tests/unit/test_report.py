@@ -166,3 +166,20 @@ def test_a_stage_summary_reads_as_words() -> None:
     line = stage_line({"stage": "split", "seconds": 1.25,
                        "summary": {"documents": {"train": 11, "dev": 2}, "queries": 5}})  # fmt: skip
     assert line == "split     done in 1.2s: documents (train 11, dev 2), queries 5"
+
+
+def test_a_difference_is_coloured_only_where_interval_and_test_agree() -> None:
+    from ballast.stages.report.charts import COLOURS, forest_svg
+
+    # an interval above zero beside p = 0.052 is not shown as a gain (it was drawn green)
+    unsure = forest_svg([("dev ndcg@10", 0.02, 0.001, 0.04, 0.052)], "t", alpha=0.05)
+    sure = forest_svg([("test ndcg@10", 0.02, 0.001, 0.04, 0.01)], "t", alpha=0.05)
+    assert COLOURS["win"] not in unsure and COLOURS["win"] in sure
+
+
+def test_code_spans_in_the_verdict_are_code_not_backticks() -> None:
+    from ballast.stages.report.page import _code
+
+    assert _code("use `ballast export --force` <now>") == (
+        "use <code>ballast export --force</code> &lt;now&gt;"
+    )
