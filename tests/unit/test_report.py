@@ -163,8 +163,8 @@ def test_the_page_has_navigation_and_collapsed_examples(tmp_path: Path) -> None:
 def test_a_stage_summary_reads_as_words() -> None:
     from ballast.cli.output import stage_line
 
-    line = stage_line({"stage": "split", "seconds": 1.25,
-                       "summary": {"documents": {"train": 11, "dev": 2}, "queries": 5}})  # fmt: skip
+    summary = {"documents": {"train": 11, "dev": 2}, "queries": 5}
+    line = stage_line({"stage": "split", "seconds": 1.25, "summary": summary})
     assert line == "split     done in 1.2s: documents (train 11, dev 2), queries 5"
 
 
