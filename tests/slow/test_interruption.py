@@ -98,7 +98,7 @@ def test_ctrl_c_says_what_is_kept_and_exits_130(tmp_path: Path) -> None:
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err[-2000:]
-    assert "interrupted. Finished stages are kept (ingest, synth, split, check, mine)" in err
+    assert "interrupted. Finished stages are kept (ingest, synth, split, check, mine, teach)" in err
     assert "Traceback" not in err
     again = subprocess.run(cmd(cfg), cwd=cfg.parent, capture_output=True, text=True)
     assert again.returncode in (0, 1, 3), again.stderr
