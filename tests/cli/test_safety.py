@@ -169,3 +169,41 @@ def test_judgements_of_unknown_queries_are_counted_not_dropped(tmp_path: Path) -
     metrics = json.loads((tmp_path / "e" / "metrics.json").read_text("utf-8"))
     assert metrics["qrels_for_unknown_queries"] == 2
     assert "2 judged query id(s)" in r.stderr
+
+
+HOLD = """
+import sys, time
+from ballast.io.lock import run_lock
+with run_lock(sys.argv[1]):
+    print("held", flush=True)
+    time.sleep(120)
+"""
+
+
+def test_a_second_process_on_a_run_folder_in_use_is_refused(tmp_path: Path) -> None:
+    """Two runs on one folder would mix their results: the second is refused with exit 2 naming
+    the holder, and once the holder is killed the folder is free again (the kernel drops a
+    dead process's lock)."""
+    import subprocess
+    import sys
+
+    from tests.conftest import write_config
+
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "good.txt").write_text("The press is rinsed after every batch.\n" * 5, "utf-8")
+    cfg = write_config(tmp_path, docs)
+    holder = subprocess.Popen([sys.executable, "-c", HOLD, str(tmp_path / "run")],
+                              stdout=subprocess.PIPE, text=True)  # fmt: skip
+    try:
+        assert holder.stdout is not None and holder.stdout.readline().strip() == "held"
+        r = runner.invoke(app, ["ingest", str(cfg)], catch_exceptions=False)
+        assert r.exit_code == 2, r.output
+        assert f"is in use by process {holder.pid}" in r.stderr
+        assert not (tmp_path / "run" / "passages.jsonl").exists()
+    finally:
+        holder.kill()  # a stale lock: its holder died without letting go
+        holder.wait()
+    r = runner.invoke(app, ["ingest", str(cfg), "-q"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "run" / "passages.jsonl").is_file()

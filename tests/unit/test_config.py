@@ -176,6 +176,13 @@ def test_override_values_that_are_not_toml_are_strings() -> None:
     assert (cfg.name, cfg.mine.sample, cfg.train.learning_rate) == ("myrun", "top", 1e-4)
 
 
+def test_a_list_of_numbers_takes_whole_numbers_too() -> None:
+    # TOML writes 0 and 1 without a point; as weights they are the numbers 0.0 and 1.0
+    assert build_config({}, ["train.mix_weights=[0, 0.5, 1]"]).train.mix_weights == (0.0, 0.5, 1.0)
+    err = _error({}, ("train.mix_weights=['half']",))
+    assert err.key == "train.mix_weights" and "a list of numbers" in str(err)
+
+
 def test_overrides_apply_over_the_file(tmp_path: Path) -> None:
     path = _write(tmp_path / "c.toml", "[train]\nepochs = 2\nbatch_size = 8\n")
     cfg = load_config(path, ["train.epochs=5"])

@@ -163,12 +163,13 @@ def _coerce(key: str, value: Any, tp: Any) -> Any:
     origin = typing.get_origin(tp)
     if origin is tuple:
         item = typing.get_args(tp)[0]
-        kind = "whole numbers" if item is int else "strings"
+        kind = {int: "whole numbers", float: "numbers"}.get(item, "strings")
+        accepted = (int, float) if item is float else item  # 0 and 1 are numbers too
         if not isinstance(value, (list, tuple)):
             _fail(key, value, f"a list of {kind}")
-        if not all(isinstance(v, item) and not isinstance(v, bool) for v in value):
+        if not all(isinstance(v, accepted) and not isinstance(v, bool) for v in value):
             _fail(key, value, f"a list of {kind}")
-        return tuple(value)
+        return tuple(float(v) for v in value) if item is float else tuple(value)
     if tp is bool:
         if not isinstance(value, bool):
             _fail(key, value, "true or false")
