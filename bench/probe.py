@@ -8,8 +8,8 @@ On a small project (three demo documents cut short, their questions, a short tra
 - **bad inputs** — every config key given a value of the wrong kind (and NaN for numbers), once
   with ``--set`` and once in the TOML file; an unknown key per section; broken document,
   question, judgement, model and bundle files. Handled means: exit 2, the key or file named in
-  the message, no traceback, every file of the finished run folder untouched (same inode, size
-  and modification time).
+  the message, no traceback, every file of the finished run folder untouched (the same bytes
+  for a file up to 1 MB; a larger one the same inode, size and modification time).
 - **kills** — chains of ``ballast run`` killed at seeded random moments (SIGKILL, and SIGINT
   for a Ctrl-C) until a run finishes; survived means every JSON file on disk parses after each
   kill, a Ctrl-C exits 130 with its message, and the finished run's outputs are byte-identical
@@ -82,13 +82,20 @@ def ballast(*args: str, cwd: Path, **kw: typing.Any) -> subprocess.CompletedProc
                           text=True, **kw)  # fmt: skip
 
 
-def snapshot(run: Path) -> dict[str, tuple[int, int, int]]:
-    """Every file's inode, size and modification time: a rewrite or a rename changes one."""
-    out = {}
+def snapshot(run: Path) -> dict[str, object]:
+    """Every file's bytes (their hash) up to 1 MB; a larger one's inode, size and modification
+    time, which a rewrite or a rename changes."""
+    import hashlib
+
+    out: dict[str, object] = {}
     for p in run.rglob("*"):
         if p.is_file() and p.name != ".lock":
             st = p.stat()
-            out[str(p.relative_to(run))] = (st.st_ino, st.st_size, st.st_mtime_ns)
+            small = st.st_size <= 1 << 20
+            out[str(p.relative_to(run))] = (
+                hashlib.sha256(p.read_bytes()).hexdigest() if small
+                else (st.st_ino, st.st_size, st.st_mtime_ns)
+            )  # fmt: skip
     return out
 
 
@@ -151,7 +158,17 @@ def with_file_setting(cfg: Path, key: str, value: str) -> tuple[Callable, Callab
 
     def setup(_: Path) -> None:
         section, line = toml_line(key, value)
+        leaf = line.split(" = ")[0]
         text = original
+        lines = text.splitlines()
+        head = lines.index(f"[{section}]") if section and f"[{section}]" in lines else -1
+        for i in range(head + 1, len(lines)):  # the key already set in its table: replace it
+            if lines[i].startswith("["):
+                break
+            if lines[i].split(" = ")[0] == leaf:
+                lines[i] = line
+                cfg.write_text("\n".join(lines) + "\n", "utf-8")
+                return
         if not section:
             text = f"{line}\n" + text
         elif f"[{section}]\n" in text:
@@ -270,7 +287,8 @@ def file_cases(root: Path, cfg: Path) -> list[Case]:
     (root / "guard" / "p.tsv").write_text("d1\tThe press is rinsed after every batch.\n", "utf-8")
     guard = ["--set", f"guard.queries={root / 'guard' / 'q.tsv'}", "--set",
              f"guard.passages={root / 'guard' / 'p.tsv'}", "--set",
-             f"guard.qrels={root / 'guard' / 'qrels'}"]  # fmt: skip
+             f"guard.qrels={root / 'guard' / 'qrels'}", "--set",
+             "evaluate.splits=['test', 'guard']"]  # fmt: skip
     for name, data in [("qrels with three columns", b"g1 0 d1\n"),
                        ("qrels with a word for a grade", b"g1 0 d1 high\n"),
                        ("qrels for unknown passages only", b"g1 0 nope 1\n")]:  # fmt: skip
@@ -374,11 +392,12 @@ def bad_inputs(root: Path, cfg: Path) -> list[dict]:
     cases = config_cases(cfg) + file_cases(root, cfg) + bundle_cases(root)
     out = []
     for case in cases:
-        before = snapshot(run)
         if case.setup:
             case.setup(root)
+        before = snapshot(run)  # after the case's own change, which it then undoes
         try:
             r = runner.invoke(app, case.args)
+            after = snapshot(run)
         finally:
             if case.undo:
                 case.undo(root)
@@ -391,8 +410,8 @@ def bad_inputs(root: Path, cfg: Path) -> list[dict]:
             problems.append(f"traceback ({type(r.exception).__name__})")
         if case.names not in err:
             problems.append(f"{case.names!r} not named")
-        changed = sorted(k for k, v in snapshot(run).items() if before.get(k) != v)
-        changed += sorted(set(before) - set(snapshot(run)))
+        changed = sorted(k for k, v in after.items() if before.get(k) != v)
+        changed += sorted(set(before) - set(after))
         if changed:
             problems.append(f"changed {changed[:3]}")
         out.append({"kind": case.kind, "case": case.name, "handled": not problems,
@@ -525,6 +544,11 @@ def main(argv: list[str] | None = None) -> int:
     if ref.returncode not in (0, 1, 3):
         print(ref.stderr[-3000:])
         return 1
+    if not (ref_root / "run" / "bundle").is_dir():  # a refused gate: a bundle to tamper with
+        forced = ballast("export", str(ref_root / "run"), "-q", "--force", cwd=ref_root)
+        if forced.returncode:
+            print(forced.stderr[-3000:])
+            return 1
     report: dict[str, typing.Any] = {"cpu": cpu()}
     if "inputs" in parts:
         rows = bad_inputs(ref_root, cfg)

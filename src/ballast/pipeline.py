@@ -19,7 +19,13 @@ from typing import Any
 from ballast import __version__
 from ballast.config.record import covered, unwrap
 from ballast.core.errors import StageError
-from ballast.io.files import fingerprint_obj, fingerprint_tree, remove_stale_temps, write_json
+from ballast.io.files import (
+    fingerprint_obj,
+    fingerprint_tree,
+    remove_stale_temps,
+    write_bytes_atomic,
+    write_json,
+)
 from ballast.io.lock import run_lock
 from ballast.io.manifest import library_versions
 from ballast.stages import ORDER, STAGES, Run, Stage
@@ -147,6 +153,22 @@ def stage_title(spec: Stage) -> str:
     return doc.split(":", 1)[1].strip().rstrip(".") if doc.startswith("Stage ") else doc
 
 
+def _outputs_state(run: Run, spec: Stage) -> dict[str, tuple[int, int, int]]:
+    """Each output file's inode, size and modification time (a folder's, file by file): any
+    replacement, by rename or in place, changes one of them."""
+    state = {}
+    for out in spec.outputs:
+        path = run.path(out)
+        files = sorted(path.rglob("*")) if path.is_dir() else [path]
+        for f in files:
+            try:
+                st = f.lstat()
+            except OSError:
+                continue
+            state[str(f)] = (st.st_ino, st.st_size, st.st_mtime_ns)
+    return state
+
+
 def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     spec = STAGES[stage]
     fp, parts = fingerprint(run, stage)
@@ -157,12 +179,23 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
             return {"stage": stage, "skipped": True, "summary": done["summary"]}
     run.progress.info(f"── {stage} ({ORDER.index(stage) + 1}/{len(ORDER)}): {stage_title(spec)}")
     _say_what_changed(run, stage, parts)
-    done_path(run, stage).unlink(missing_ok=True)
+    # the marker goes first, so that a run killed between two outputs is never taken as done;
+    # a stage that fails (bad input, Ctrl-C) before replacing any output gets it back: its
+    # outputs still match it
+    marker = done_path(run, stage)
+    kept = marker.read_bytes() if marker.is_file() else None
+    outputs_before = _outputs_state(run, spec)
+    marker.unlink(missing_ok=True)
     for out in spec.outputs:  # what a killed run of this stage left half-built
         remove_stale_temps(run.dir, Path(out).name)
     reads: set[str] = set()
     started = time.perf_counter()
-    summary = spec.run(run.recording(reads))
+    try:
+        summary = spec.run(run.recording(reads))
+    except BaseException:
+        if kept is not None and _outputs_state(run, spec) == outputs_before:
+            write_bytes_atomic(marker, kept)
+        raise
     seconds = round(time.perf_counter() - started, 3)
     keys = declared_keys(spec)
     undeclared = sorted(k for k in reads if not covered(k, keys))

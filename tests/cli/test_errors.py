@@ -53,13 +53,15 @@ def _ingest_fails(tmp_path: Path, name: str, data: bytes) -> str:
     cfg = write_config(tmp_path, docs)
     assert invoke("ingest", str(cfg), "-q").exit_code == 0
     before = (tmp_path / "run" / "passages.jsonl").read_bytes()
+    marker = (tmp_path / "run" / "ingest.done.json").read_bytes()
     (docs / name).write_bytes(data)
     r = invoke("ingest", str(cfg), "-q")
     assert r.exit_code == 2, r.output
     # the earlier output is intact and no temporary file is left behind
     assert (tmp_path / "run" / "passages.jsonl").read_bytes() == before
     assert not [p for p in (tmp_path / "run").iterdir() if p.name.endswith(".tmp")]
-    assert not (tmp_path / "run" / "ingest.done.json").exists()
+    # and the done marker still describes them: the stage replaced nothing
+    assert (tmp_path / "run" / "ingest.done.json").read_bytes() == marker
     return r.stderr
 
 
@@ -83,6 +85,12 @@ def test_duplicate_ids(tmp_path: Path) -> None:
     err = _ingest_fails(tmp_path, "rows.jsonl",
                         b'{"id": "a", "text": "one text"}\n{"id": "a", "text": "two text"}\n')
     assert "duplicate document id 'a'" in err and "rows.jsonl" in err
+
+
+def test_a_quote_left_open_in_a_csv(tmp_path: Path) -> None:
+    # RFC 4180 section 2: a field that starts with a double quote ends with one
+    err = _ingest_fails(tmp_path, "rows.csv", b'id,text\na,"unterminated\nb,more words\n')
+    assert "rows.csv" in err and "not valid CSV" in err
 
 
 def test_non_utf8_bytes(tmp_path: Path) -> None:

@@ -207,3 +207,26 @@ def test_a_second_process_on_a_run_folder_in_use_is_refused(tmp_path: Path) -> N
     r = runner.invoke(app, ["ingest", str(cfg), "-q"], catch_exceptions=False)
     assert r.exit_code == 0, r.output
     assert (tmp_path / "run" / "passages.jsonl").is_file()
+
+
+def test_a_stage_refused_before_writing_keeps_its_done_marker(tmp_path: Path) -> None:
+    """A bad document found while reading (not while fingerprinting): the stage fails with
+    exit 2 having replaced nothing, so its done marker still describes the files there and the
+    next run, with the bad file gone, has nothing to redo."""
+    from tests.conftest import write_config
+
+    docs = tmp_path / "docs"
+    docs.mkdir()
+    (docs / "good.txt").write_text("The press is rinsed after every batch.\n" * 5, "utf-8")
+    cfg = write_config(tmp_path, docs)
+    assert runner.invoke(app, ["ingest", str(cfg), "-q"], catch_exceptions=False).exit_code == 0
+    marker = tmp_path / "run" / "ingest.done.json"
+    before = marker.read_bytes()
+    (docs / "junk.txt").write_bytes(b"ABC\x00\x00DEF\x00" * 50)
+    r = runner.invoke(app, ["ingest", str(cfg)], catch_exceptions=False)
+    assert r.exit_code == 2 and "junk.txt" in r.stderr
+    assert marker.read_bytes() == before
+    (docs / "junk.txt").unlink()
+    r = runner.invoke(app, ["run", str(cfg), "--set", "evaluate.splits=['test']"],
+                      catch_exceptions=False)  # fmt: skip
+    assert "ingest: unchanged, skipped" in r.stderr

@@ -290,6 +290,10 @@ def test_splits_follow_the_evidence_by_default() -> None:
     assert guard.gate.splits == ("test", "guard") and "guard" in guard.evaluate.splits
     explicit = Config(synth=SynthConfig(questions="q.jsonl"), gate=GateConfig(splits=("test",)))
     assert explicit.gate.splits == ("test",)  # an explicit list is kept as written
+    with pytest.raises(ConfigError, match="evaluate.splits") as err:  # a guard nothing reads
+        build_config({"evaluate": {"splits": ["test"]},
+                      "guard": {"queries": "q", "qrels": "r", "passages": "p"}})  # fmt: skip
+    assert "'guard'" in str(err.value)
 
 
 def test_a_judge_must_be_a_generator_the_training_does_not_use() -> None:

@@ -108,6 +108,10 @@ class Config:
             judged = ("human", "human_heldout") if real else judge or ("test",)
             gate = dataclasses.replace(self.gate, splits=(*judged, *guard))
             object.__setattr__(self, "gate", gate)
+        if guard and "guard" not in self.evaluate.splits:  # a guard set that nothing reads
+            _fail("evaluate.splits", list(self.evaluate.splits),
+                  "a list with 'guard' in it, since guard.* is set (or [] to follow the "
+                  "evidence)")  # fmt: skip
 
     def to_dict(self) -> dict[str, Any]:
         return _to_plain(dataclasses.asdict(self))

@@ -184,11 +184,12 @@ def _record_docs(
 
 def _csv_rows(path: Path) -> Iterator[tuple[int, dict]]:
     text = read_text(path)
-    reader = csv.DictReader(io.StringIO(text, newline=""))
-    if not reader.fieldnames:
-        raise InputError("the file is empty; expected a header row", path=path)
+    # strict: a quote left open runs to the end of the file, swallowing every row after it
+    reader = csv.DictReader(io.StringIO(text, newline=""), strict=True)
     n = 0
     try:
+        if not reader.fieldnames:  # reads the header row
+            raise InputError("the file is empty; expected a header row", path=path)
         for row in reader:
             if None in row:
                 raise InputError(
@@ -199,7 +200,7 @@ def _csv_rows(path: Path) -> Iterator[tuple[int, dict]]:
             n += 1
             yield reader.line_num, row
     except csv.Error as exc:
-        raise InputError(f"not valid CSV: {exc}", path=path, line=reader.line_num) from None
+        raise InputError(f"not valid CSV: {exc}", path=path, line=max(reader.line_num, 1)) from None
     if n == 0:
         raise InputError("no rows after the header", path=path)
 
