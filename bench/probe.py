@@ -1,7 +1,7 @@
 """A robustness probe through the CLI, as a careful tester would: bad inputs, kills, two runs
 at once. It counts what was tried and what was handled as promised.
 
-    python -m bench.probe OUT [--chains 2] [--pairs 4]
+    python -m bench.probe OUT [--chains 6] [--pairs 4]
 
 On a small project (three demo documents cut short, their questions, a short training):
 
@@ -446,7 +446,7 @@ def parses(run: Path) -> list[str]:
     return bad
 
 
-def kill_chain(root: Path, ref: Path, seed: int, max_kills: int = 12) -> dict:
+def kill_chain(root: Path, ref: Path, seed: int, span: float, max_kills: int = 12) -> dict:
     cfg = project(root)
     run = root / "run"
     rng = random.Random(seed)
@@ -462,7 +462,7 @@ def kill_chain(root: Path, ref: Path, seed: int, max_kills: int = 12) -> dict:
             if len(kills) >= max_kills:
                 code = proc.wait()
                 break
-            wait = rng.uniform(4.0, 25.0)
+            wait = rng.uniform(2.0, span)  # anywhere in an uninterrupted run's time
             try:
                 code = proc.wait(timeout=wait)
                 break  # finished before the kill
@@ -528,7 +528,7 @@ def concurrent(root: Path, ref_root: Path, delay: float) -> dict:
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("out", type=Path)
-    ap.add_argument("--chains", type=int, default=2, help="kill chains (each until a run ends)")
+    ap.add_argument("--chains", type=int, default=6, help="kill chains (each until a run ends)")
     ap.add_argument("--pairs", type=int, default=4, help="tries of two runs at once")
     ap.add_argument("--only", choices=["inputs", "kills", "concurrent"], action="append")
     a = ap.parse_args(argv)
@@ -540,7 +540,8 @@ def main(argv: list[str] | None = None) -> int:
     cfg = project(ref_root)
     t0 = time.perf_counter()
     ref = ballast("run", str(cfg), "-q", cwd=ref_root)
-    print(f"reference run: exit {ref.returncode}, {time.perf_counter() - t0:.0f} s", flush=True)
+    span = time.perf_counter() - t0
+    print(f"reference run: exit {ref.returncode}, {span:.0f} s", flush=True)
     if ref.returncode not in (0, 1, 3):
         print(ref.stderr[-3000:])
         return 1
@@ -566,7 +567,7 @@ def main(argv: list[str] | None = None) -> int:
             if not r["handled"]:
                 print(f"  NOT HANDLED {r['kind']}: {r['case']}: {'; '.join(r['problems'])}")
     if "kills" in parts:
-        chains = [kill_chain(a.out / f"chain{i}", ref_root / "run", seed=i)
+        chains = [kill_chain(a.out / f"chain{i}", ref_root / "run", seed=i, span=span)
                   for i in range(a.chains)]  # fmt: skip
         report["kills"] = chains
         print("\n| chain | kills (stage:signal) | every kill ok | outputs identical | .tmp left |")

@@ -180,8 +180,9 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     run.progress.info(f"── {stage} ({ORDER.index(stage) + 1}/{len(ORDER)}): {stage_title(spec)}")
     _say_what_changed(run, stage, parts)
     # the marker goes first, so that a run killed between two outputs is never taken as done;
-    # a stage that fails (bad input, Ctrl-C) before replacing any output gets it back: its
-    # outputs still match it
+    # a stage that fails (a bad input found while reading) before replacing any output gets it
+    # back: its outputs still match it. An interrupted stage (Ctrl-C) does not: it is reported
+    # as not finished, and runs again.
     marker = done_path(run, stage)
     kept = marker.read_bytes() if marker.is_file() else None
     outputs_before = _outputs_state(run, spec)
@@ -192,7 +193,7 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     started = time.perf_counter()
     try:
         summary = spec.run(run.recording(reads))
-    except BaseException:
+    except Exception:
         if kept is not None and _outputs_state(run, spec) == outputs_before:
             write_bytes_atomic(marker, kept)
         raise

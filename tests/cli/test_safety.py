@@ -129,6 +129,13 @@ def test_the_bundle_reads_as_far_as_the_base_model(tmp_path: Path) -> None:
     assert manifest["model"]["max_seq_length"] == 256
     assert manifest["model"]["trained_max_seq_length"] == 128
     assert runner.invoke(app, ["verify", str(bundle)]).exit_code == 0
+    # unless the user sets a length of their own
+    r = runner.invoke(app, ["export", str(run), "--set", "export.max_seq_length=200", "--set",
+                            "export.version=short"], catch_exceptions=False)  # fmt: skip
+    assert r.exit_code == 0 and "reads up to 200 tokens (export.max_seq_length" in r.stderr
+    short = next(p for p in (run / "bundle").iterdir() if p.name.endswith("short"))
+    assert json.loads((short / "manifest.json").read_text())["model"]["max_seq_length"] == 200
+    assert "200 tokens" in (short / "README.md").read_text("utf-8")
 
 
 def test_a_one_off_setting_does_not_stick_and_a_change_is_said(tmp_path: Path) -> None:
@@ -230,3 +237,34 @@ def test_a_stage_refused_before_writing_keeps_its_done_marker(tmp_path: Path) ->
     r = runner.invoke(app, ["run", str(cfg), "--set", "evaluate.splits=['test']"],
                       catch_exceptions=False)  # fmt: skip
     assert "ingest: unchanged, skipped" in r.stderr
+
+
+def test_another_user_can_read_the_bundle(tmp_path_factory: pytest.TempPathFactory) -> None:
+    """An index builder running as a service account reads the bundle: under the usual umask
+    022 the bundle's folders are 0755 and its files 0644 (POSIX: a new file is 0666 & ~umask),
+    so user nobody (uid 65534) reads every file of it."""
+    import os
+    import shutil
+    import subprocess
+    import tempfile
+
+    if os.geteuid() != 0 or not shutil.which("setpriv"):
+        pytest.skip("needs root and setpriv to run a command as another user")
+    root = Path(tempfile.mkdtemp(prefix="ballast-bundle-", dir="/tmp"))
+    old = os.umask(0o022)
+    try:
+        root.chmod(0o755)  # mkdtemp makes it 0700: only the bundle's own modes are under test
+        run = make_run(root, gate_passes=True, with_model=True)
+        r = runner.invoke(app, ["export", str(run), "-q"], catch_exceptions=False)
+        assert r.exit_code == 0, r.output
+        bundle = next((run / "bundle").iterdir())
+        read = subprocess.run(
+            ["setpriv", "--reuid=65534", "--regid=65534", "--clear-groups", "sh", "-c",
+             'find "$1" -type f -exec cat {} + > /dev/null && echo read', "sh", str(bundle)],
+            capture_output=True, text=True, timeout=120)  # fmt: skip
+        assert read.returncode == 0 and read.stdout.strip() == "read", read.stderr
+        modes = {p.stat().st_mode & 0o777 for p in [bundle, *bundle.rglob("*")]}
+        assert modes <= {0o644, 0o755}, sorted(oct(m) for m in modes)
+    finally:
+        os.umask(old)
+        shutil.rmtree(root, ignore_errors=True)

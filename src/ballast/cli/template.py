@@ -178,4 +178,5 @@ dir = ""                   # default: <run_dir>/bundle
 version = ""               # default: v-<first 12 hex digits of the tuned weights hash>
 onnx = false               # also model.onnx: pooling + normalisation inside, checked to 1e-5
 quantize_int8 = false      # also model_int8.onnx (implies onnx); its metric change is measured
+max_seq_length = 0         # tokens the bundle reads; 0 = as far as the base model (256 for MiniLM)
 """

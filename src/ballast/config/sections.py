@@ -516,9 +516,14 @@ class ExportConfig:
     version: str = ""
     onnx: bool = False  # also write model.onnx (pooling and normalisation in the graph)
     quantize_int8: bool = False  # also write model_int8.onnx (implies onnx), cost measured
+    # the longest text the bundle reads, in tokens; 0 = as far as the base model reads (training
+    # may have used fewer, train.max_seq_length)
+    max_seq_length: int = 0
 
     def __post_init__(self) -> None:
         if self.version and not all(c.isalnum() or c in "._-" for c in self.version):
             _fail("export.version", self.version, "letters, digits, '.', '_' or '-' only")
+        if self.max_seq_length:
+            _range("export.max_seq_length", self.max_seq_length, 16, 512)
 
 

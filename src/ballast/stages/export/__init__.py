@@ -117,12 +117,14 @@ def export(run: Run) -> dict[str, Any]:
     }
     with atomic_dir(target) as tmp:
         copy_model(model_dir, tmp)
-        lengths = restore_length(tmp, run.base_path)
+        wanted = run.cfg.export.max_seq_length
+        lengths = restore_length(tmp, run.base_path, wanted)
         if lengths:
             manifest["model"]["max_seq_length"] = lengths["bundle"]
+            source = "export.max_seq_length" if wanted else "as the base model does"
             run.progress.info(
-                f"export: the bundle reads up to {lengths['bundle']} tokens, as the base model "
-                f"does (trained on up to {lengths['trained']}: train.max_seq_length)"
+                f"export: the bundle reads up to {lengths['bundle']} tokens ({source}; trained "
+                f"on up to {lengths['trained']}: train.max_seq_length)"
             )
         manifest["model"]["trained_max_seq_length"] = run.cfg.train.max_seq_length
         from ballast.io.manifest import files_hash

@@ -43,10 +43,11 @@ def copy_model(src: Path, dst: Path) -> None:
             shutil.copyfile(f, target)
 
 
-def restore_length(bundle: Path, base_dir: Path) -> dict[str, int] | None:
-    """Give the bundle the base model's ``max_seq_length`` (training may have used a shorter
-    one, ``train.max_seq_length``: an index builder with longer chunks would otherwise be cut
-    short without a word). Returns {"bundle": …, "trained": …} when it changed anything."""
+def restore_length(bundle: Path, base_dir: Path, wanted: int = 0) -> dict[str, int] | None:
+    """Give the bundle ``wanted`` tokens (``export.max_seq_length``), or else the base model's
+    ``max_seq_length`` (training may have used a shorter one, ``train.max_seq_length``: an index
+    builder with longer chunks would otherwise be cut short without a word). Returns
+    {"bundle": …, "trained": …} when it changed anything."""
     import json
 
     def length(folder: Path) -> int | None:
@@ -56,7 +57,7 @@ def restore_length(bundle: Path, base_dir: Path) -> dict[str, int] | None:
         except (OSError, ValueError, KeyError, TypeError):
             return None
 
-    base = length(base_dir)
+    base = wanted or length(base_dir)
     if base is None:
         return None
     changed = None

@@ -37,7 +37,7 @@ def seconds_per_step(
     times = []
     for _ in range(WARMUP_STEPS + 1):
         started = time.perf_counter()
-        features = [model.tokenize([columns[k][i] for i in rows]) for k in texts]
+        features = [model.preprocess([columns[k][i] for i in rows]) for k in texts]
         with torch.autocast("cpu", dtype=torch.bfloat16, enabled=bf16):
             out = loss(features, labels)
         total = sum(out.values()) if isinstance(out, dict) else out
