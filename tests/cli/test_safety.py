@@ -124,6 +124,7 @@ def test_the_bundle_reads_as_far_as_the_base_model(tmp_path: Path) -> None:
     r = runner.invoke(app, ["export", str(run)], catch_exceptions=False)
     assert r.exit_code == 0 and "reads up to 256 tokens" in r.stderr
     bundle = next((run / "bundle").iterdir())
+    assert f"wrote {bundle}\n" in r.stdout  # where the bundle is, said as every stage says it
     assert json.loads((bundle / "sentence_bert_config.json").read_text())["max_seq_length"] == 256
     manifest = json.loads((bundle / "manifest.json").read_text())
     assert manifest["model"]["max_seq_length"] == 256

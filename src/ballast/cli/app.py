@@ -133,7 +133,10 @@ def _stage(
         from ballast.stages import STAGES
 
         typer.echo(stage_line(result))
-        typer.echo("wrote " + ", ".join(str(run.path(o)) for o in STAGES[stage].outputs))
+        # export declares no run-folder outputs: it writes the bundle its summary names
+        wrote = [str(run.path(o)) for o in STAGES[stage].outputs]
+        wrote = wrote or [str(result.get("summary", {}).get("bundle", ""))]
+        typer.echo("wrote " + ", ".join(w for w in wrote if w))
         if stage == "evaluate":
             typer.echo(metrics_table(_read(run.path("metrics.json")), SHOWN))
         if stage == "gate":
