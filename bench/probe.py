@@ -470,7 +470,10 @@ def kill_chain(root: Path, ref: Path, seed: int, span: float, max_kills: int = 1
                 pass
             sig = signal.SIGINT if rng.random() < 0.25 else signal.SIGKILL
             stage = last_stage(err_file)
-            os.killpg(proc.pid, sig) if sig == signal.SIGKILL else proc.send_signal(sig)
+            if sig == signal.SIGKILL:
+                os.killpg(proc.pid, sig)  # the whole group, as a crash or the OOM killer would
+            else:
+                proc.send_signal(sig)
             got = proc.wait(timeout=300)
         text = err_file.read_text("utf-8", errors="replace")
         ok = not parses(run)

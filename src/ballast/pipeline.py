@@ -185,7 +185,7 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     # as not finished, and runs again.
     marker = done_path(run, stage)
     kept = marker.read_bytes() if marker.is_file() else None
-    outputs_before = _outputs_state(run, spec)
+    outputs_before = _outputs_state(run, spec) if kept is not None else None
     marker.unlink(missing_ok=True)
     for out in spec.outputs:  # what a killed run of this stage left half-built
         remove_stale_temps(run.dir, Path(out).name)
@@ -194,7 +194,7 @@ def _run_locked(run: Run, stage: str, skip_unchanged: bool) -> dict[str, Any]:
     try:
         summary = spec.run(run.recording(reads))
     except Exception:
-        if kept is not None and _outputs_state(run, spec) == outputs_before:
+        if outputs_before is not None and _outputs_state(run, spec) == outputs_before:
             write_bytes_atomic(marker, kept)
         raise
     seconds = round(time.perf_counter() - started, 3)

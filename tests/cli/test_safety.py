@@ -235,9 +235,11 @@ def test_a_stage_refused_before_writing_keeps_its_done_marker(tmp_path: Path) ->
     assert r.exit_code == 2 and "junk.txt" in r.stderr
     assert marker.read_bytes() == before
     (docs / "junk.txt").unlink()
-    r = runner.invoke(app, ["run", str(cfg), "--set", "evaluate.splits=['test']"],
-                      catch_exceptions=False)  # fmt: skip
-    assert "ingest: unchanged, skipped" in r.stderr
+    from ballast.config import load_config
+    from ballast.pipeline import run_stage
+    from ballast.stages import Run
+
+    assert run_stage(Run(load_config(cfg)), "ingest", skip_unchanged=True)["skipped"]
 
 
 def test_another_user_can_read_the_bundle(tmp_path_factory: pytest.TempPathFactory) -> None:

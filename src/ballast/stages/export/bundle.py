@@ -57,15 +57,15 @@ def restore_length(bundle: Path, base_dir: Path, wanted: int = 0) -> dict[str, i
         except (OSError, ValueError, KeyError, TypeError):
             return None
 
-    base = wanted or length(base_dir)
-    if base is None:
+    target = wanted or length(base_dir)
+    if target is None:
         return None
     changed = None
     for f in sorted(bundle.rglob("sentence_bert_config.json")):
         cfg = json.loads(f.read_text("utf-8"))
         trained = cfg.get("max_seq_length")
-        if isinstance(trained, int) and trained != base:
-            cfg["max_seq_length"] = base
+        if isinstance(trained, int) and trained != target:
+            cfg["max_seq_length"] = target
             f.write_text(json.dumps(cfg, indent=2) + "\n", "utf-8")
-            changed = {"bundle": base, "trained": trained}
+            changed = {"bundle": target, "trained": trained}
     return changed
