@@ -1,5 +1,6 @@
 """Training recipes side by side on one collection: teacher labels against the contrastive
-loss (``--recipes teachers``), or the quantity and mix of training data (``--recipes quantity``).
+loss (``--recipes teachers``), the quantity and mix of training data (``--recipes quantity``), or
+random batches against batches of similar length (``--recipes batching``).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
 
@@ -38,6 +39,10 @@ QUANTITY = {
     "in-batch negatives only": ["mine.negatives=0"],
     "2 epochs": ["train.epochs=2"],
     "learning rate 5e-5": ["train.learning_rate=5e-5"],
+}
+BATCHING = {
+    "random batches": ["train.batching=random"],
+    "batches of similar length": ["train.batching=length"],
 }
 LLM = {"query likelihood (Gemma), KL": ["teach.teacher=query-likelihood",
                                          "teach.model=packaged:gemma-3-270m"]}  # fmt: skip
@@ -95,17 +100,25 @@ def one(cfg_path: Path, folder: Path, sets: list[str], first: Path | None) -> di
         "splits": splits,
         "gate": read("gate.json")["summary"],
         "mix": (train.get("mix") or {}).get("weight"),
+        "dev": _dev_gain(train.get("mix") or {}),
         "train_seconds": read("train.done.json")["summary"].get("seconds"),
         "seconds": round(seconds, 1),
         "ran": [s["stage"] for s in stages if not s.get("skipped")],
     }
 
 
+def _dev_gain(mix: dict) -> float | None:
+    """The safety net's dev score of the tuned model (weight 1) minus the base's (weight 0)."""
+    scores = mix.get("dev_scores") or {}
+    return round(scores["1"] - scores["0"], 6) if "1" in scores and "0" in scores else None
+
+
 def render(rows: dict[str, dict]) -> str:
     splits = sorted({s for r in rows.values() for s in r["splits"]})
     lines = [f"machine: {cpu()}", "",
-             "| recipe | teacher check (dev) | " + " | ".join(splits) + " | mix | train s |",
-             "|---|---|" + "---|" * len(splits) + "---|---|"]  # fmt: skip
+             "| recipe | teacher check (dev) | dev (net, 1 vs 0) | " + " | ".join(splits)
+             + " | mix | train s |",
+             "|---|---|---|" + "---|" * len(splits) + "---|---|"]  # fmt: skip
     for name, r in rows.items():
         c = r["teacher"].get("check")
         check = (f"{c['teacher']:.4f} vs {c['base']:.4f} on {c['queries']} {c['split']}"
@@ -114,7 +127,8 @@ def render(rows: dict[str, dict]) -> str:
         for s in splits:
             v = r["splits"].get(s)
             cells.append(f"{v['gain']:+.4f} [{v['ci'][0]:+.4f}, {v['ci'][1]:+.4f}]" if v else "")
-        lines.append(f"| {name} | {check} | " + " | ".join(cells)
+        dev = "-" if r.get("dev") is None else f"{r['dev']:+.4f}"
+        lines.append(f"| {name} | {check} | {dev} | " + " | ".join(cells)
                      + f" | {r['mix']} | {r['train_seconds']} |")  # fmt: skip
     lines.append("")
     lines += [f"{name}: {r['gate']} ({r['seconds']} s)" for name, r in rows.items()]
@@ -131,14 +145,15 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
-    ap.add_argument("--recipes", choices=("teachers", "quantity"), default="teachers")
+    ap.add_argument("--recipes", choices=("teachers", "quantity", "batching"),
+                    default="teachers")  # fmt: skip
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
     ap.add_argument("--set", dest="sets", action="append", default=[])
     ap.add_argument("--only", action="append", default=[], help="run only these recipes")
     args = ap.parse_args(argv)
     cfg = config(args)
-    recipes = RECIPES if args.recipes == "teachers" else QUANTITY
+    recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING}[args.recipes]
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}

@@ -10,7 +10,7 @@ import pytest
 import torch
 
 from ballast.stages.train.full import DevSet
-from ballast.stages.train.mix import choose_weight, interpolate
+from ballast.stages.train.mix import choose_weight, interpolate, search
 
 N, DIM = 60, 16
 rng = np.random.default_rng(7)
@@ -62,10 +62,9 @@ def test_interpolation_is_exact_and_leaves_integer_buffers_alone() -> None:
 def test_the_best_dev_weight_is_kept(tuned_w: float, expected: float) -> None:
     base, tuned = Planted(0.3), Planted(tuned_w)
     base_passages = base.encode(TEXTS)
-    best, scores, candidates = choose_weight(
-        base, tuned, dev(), (0.0, 0.5, 1.0), base_passages=base_passages
-    )
-    assert best == expected and candidates == N
+    net = choose_weight(base, tuned, dev(), (0.0, 0.5, 1.0), base_passages=base_passages)
+    best, scores = net["weight"], net["dev_scores"]
+    assert best == expected and net["candidates"] == N
     assert float(tuned.params["w"]) == pytest.approx(0.3 * (1 - best) + tuned_w * best)
     if expected == 0.0:  # a tuned model worse than the base: the base ships
         assert scores["0"] > scores["1"]
@@ -75,6 +74,68 @@ def test_the_best_dev_weight_is_kept(tuned_w: float, expected: float) -> None:
 
 def test_ties_go_to_the_smaller_weight() -> None:
     base, tuned = Planted(1.0), Planted(1.0)
-    best, scores, _ = choose_weight(base, tuned, dev(), (0.0, 0.5, 1.0),
-                                    base_passages=base.encode(TEXTS))  # fmt: skip
-    assert len(set(scores.values())) == 1 and best == 0.0
+    net = choose_weight(base, tuned, dev(), (0.0, 0.5, 1.0), base_passages=base.encode(TEXTS),
+                        descend=True)  # fmt: skip
+    scores = net["dev_scores"]
+    assert len(scores) == 3 and len(set(scores.values())) == 1 and net["weight"] == 0.0
+
+
+WEIGHTS = (0.0, 0.25, 0.5, 0.75, 1.0)
+
+
+@pytest.mark.parametrize(
+    ("curve", "scored_all", "scored_descending"),
+    [
+        # one peak at 0.5: descending stops at 0.25, the first weight past the peak
+        ({0: 0.70, 0.25: 0.74, 0.5: 0.76, 0.75: 0.75, 1: 0.72}, 5, 5),
+        # rising to 1, the usual curve with enough pairs (docs/scale.md): two weights scored
+        ({0: 0.66, 0.25: 0.72, 0.5: 0.76, 0.75: 0.79, 1: 0.81}, 5, 3),
+        # flat: ties go on down (a tie is not a fall)
+        ({0: 0.8, 0.25: 0.8, 0.5: 0.8, 0.75: 0.8, 1: 0.8}, 5, 5),
+    ],
+)
+def test_descending_search_keeps_the_peak_of_a_single_peaked_curve(
+    curve: dict, scored_all: int, scored_descending: int
+) -> None:
+    every = search(WEIGHTS, curve.__getitem__, descend=False)
+    fewer = search(WEIGHTS, curve.__getitem__, descend=True)
+    assert (len(every), len(fewer)) == (scored_all, scored_descending)
+    assert max(every, key=lambda w: (every[w], -w)) == max(fewer, key=lambda w: (fewer[w], -w))
+    assert 0.0 in fewer  # the base is always scored: a tuned model worse on dev never ships
+
+
+def test_descending_search_misses_a_second_peak_which_all_finds() -> None:
+    # a curve with two peaks, as a small dev set gave (tests' 20-query runs): descending stops
+    # at 0.5 and keeps the base, which still beats every weight it scored; "all" finds 0.25
+    curve = {0: 0.871, 0.25: 0.886, 0.5: 0.852, 0.75: 0.866, 1: 0.839}
+    fewer = search(WEIGHTS, curve.__getitem__, descend=True)
+    assert sorted(fewer) == [0.0, 0.5, 0.75, 1.0]
+    assert max(fewer, key=fewer.__getitem__) == 0.0
+    every = search(WEIGHTS, curve.__getitem__, descend=False)
+    assert max(every, key=every.__getitem__) == 0.25
+
+
+class RosyUnderBf16(Planted):
+    """Under bfloat16 autocast its queries land on their passages (a flattering rounding);
+    in float32 it is the planted model of weight ``w``."""
+
+    def encode(self, texts: list[str], **kw: object) -> np.ndarray:
+        if torch.is_autocast_enabled("cpu"):
+            return Planted(1.0).encode(texts)
+        return super().encode(texts, **kw)
+
+
+@pytest.mark.parametrize(("tuned_w", "kept"), [(0.1, 0.0), (1.0, 1.0)])
+def test_a_close_bf16_win_is_checked_in_float32(
+    monkeypatch: pytest.MonkeyPatch, tuned_w: float, kept: float
+) -> None:
+    import ballast.stages.train.mix as mix
+
+    monkeypatch.setattr(mix, "CLOSE", 2.0)  # every win counts as close
+    base = Planted(0.5)
+    net = choose_weight(base, RosyUnderBf16(tuned_w), dev(), (0.0, 1.0),
+                        base_passages=base.encode(TEXTS), bf16=True)  # fmt: skip
+    assert net["precision"] == "bfloat16" and net["dev_scores"]["1"] == 1.0  # flattered
+    check = net["float32_check"]
+    assert check["0"] == net["dev_scores"]["0"]
+    assert (check["1"] > check["0"]) == (kept == 1.0) and net["weight"] == kept

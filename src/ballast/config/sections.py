@@ -338,6 +338,9 @@ class TrainConfig:
     # the safety net: after training, these interpolations of base (0) and tuned (1) weights
     # are scored on the dev queries and the best kept (WiSE-FT); [] = keep the tuned model
     mix_weights: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
+    # "descend": score from 1 down and stop once the score falls (the same weight on a curve
+    # with one peak, in fewer encodings); "all": score every weight (stages/train/mix.py)
+    mix_search: str = "descend"
     # "random": batches drawn at random (without duplicate texts); "length": batches of similar
     # length, so fewer pad tokens are computed (stages/train/batches.py)
     batching: str = "random"
@@ -352,6 +355,8 @@ class TrainConfig:
         _range("train.max_pairs", self.max_pairs, 0, 10**9)
         if self.batching not in ("random", "length"):
             _fail("train.batching", self.batching, "'random' or 'length'")
+        if self.mix_search not in ("descend", "all"):
+            _fail("train.mix_search", self.mix_search, "'descend' or 'all'")
         for w in self.mix_weights:
             _range("train.mix_weights", w, 0.0, 1.0)
         if len(set(self.mix_weights)) != len(self.mix_weights):

@@ -107,6 +107,7 @@ def train(run: Run) -> dict[str, Any]:
         train_model, run.base_path, examples, run.cfg.train, seed=run.cfg.seed,
         work_dir=work, dev=dev, progress=run.progress,
         teach=run.cfg.teach if taught else None,
+        net_texts=0 if adapter else _net_texts(run, len(passages), splits),
     )  # fmt: skip
     rank, world = process_rank()
     if rank != 0:  # torchrun: a helper process trains its share and writes nothing
@@ -183,6 +184,17 @@ def _teacher_summary(run: Run, taught: int) -> dict[str, Any] | None:
             "temperature": t.temperature, "contrastive_weight": t.contrastive_weight}  # fmt: skip
 
 
+def _net_texts(run: Run, passages: int, splits: dict) -> int:
+    """At most how many texts the safety net encodes for each weight it scores: the dev
+    queries and their candidates (stages/train/mix.py); 0 when there is no net to run."""
+    from ballast.stages.train.mix import CANDIDATES
+
+    n_dev = len(splits["queries"].get("dev", [])) + len(splits["queries"].get("human_dev", []))
+    if not (run.cfg.train.mix_weights and n_dev):
+        return 0
+    return n_dev + min(passages, n_dev * (CANDIDATES + 1))
+
+
 def _safety_net(
     run: Run, model_dir: Path, dev: Any, passages: list[dict], queries: list[dict], splits: dict
 ) -> dict[str, Any] | None:
@@ -196,6 +208,7 @@ def _safety_net(
         return None
     from ballast.models.encode import encode_cached
     from ballast.models.loading import load_encoder
+    from ballast.stages.train.full import use_bf16
     from ballast.stages.train.mix import choose_weight
 
     dev = dev or dev_set(run, passages, queries, splits)
@@ -205,22 +218,20 @@ def _safety_net(
         label="encoding passages (base)", progress=run.progress,
     )  # fmt: skip
     tuned = load_encoder(model_dir, max_seq_length=run.cfg.train.max_seq_length)
-    run.progress.info(f"train: scoring base/tuned mixes {', '.join(f'{w:g}' for w in weights)} "
+    descend = run.cfg.train.mix_search == "descend"
+    run.progress.info(f"train: scoring base/tuned mixes {', '.join(f'{w:g}' for w in weights)}"
+                      f"{' (largest first, until the score falls)' if descend else ''} "
                       f"on {len(dev.query_texts)} dev queries")  # fmt: skip
-    best, scores, candidates = choose_weight(
-        base, tuned, dev, weights, base_passages=base_passages, progress=run.progress
-    )
-    if best != 1.0:
+    net = choose_weight(
+        base, tuned, dev, weights, base_passages=base_passages, descend=descend,
+        bf16=use_bf16(run.cfg.train.bf16), progress=run.progress,
+    )  # fmt: skip
+    if net["weight"] != 1.0:
         tuned.save(str(model_dir), create_model_card=False, safe_serialization=True)
-    run.progress.info(f"train: kept weight {best:g} of the tuned model (dev {dev.metric}: "
-                      + ", ".join(f"{w} {v:.4f}" for w, v in scores.items()) + ")")  # fmt: skip
-    return {
-        "weight": best,
-        "dev_scores": scores,
-        "dev_queries": len(dev.query_texts),
-        "candidates": candidates,
-        "metric": dev.metric,
-    }
+    run.progress.info(f"train: kept weight {net['weight']:g} of the tuned model (dev {dev.metric}"
+                      f", {net['precision']}: " + ", ".join(
+                          f"{w} {v:.4f}" for w, v in net["dev_scores"].items()) + ")")  # fmt: skip
+    return {**net, "dev_queries": len(dev.query_texts), "metric": dev.metric}
 
 
 def train_frozen_adapter(

@@ -157,11 +157,12 @@ ESTIMATE_ABOVE = 30  # steps: shorter trainings start at once, unless a budget i
 
 def _estimate(
     model: Any, loss: Any, columns: dict[str, list[Any]], cfg: TrainConfig, *, seed: int,
-    bf16: bool, work_dir: Path, progress: Progress,
+    bf16: bool, work_dir: Path, progress: Progress, net_texts: int = 0,
 ) -> tuple[dict[str, list[Any]], dict[str, Any] | None]:  # fmt: skip
     """Say how long training will take (a timed warm-up) and apply ``train.minutes`` and
-    ``train.max_pairs``. The choice is kept in the work folder, so a resumed training trains
-    on the same examples whatever the machine's speed is now."""
+    ``train.max_pairs``; with ``net_texts`` (the texts the safety net encodes for each weight
+    it scores), how long the net will take too. The choice is kept in the work folder, so a
+    resumed training trains on the same examples whatever the machine's speed is now."""
     import json
 
     from ballast.core.text import sha256_bytes
@@ -182,8 +183,21 @@ def _estimate(
         kept, info = budget.plan(model, loss, columns, cfg, seed=seed, bf16=bf16)
         step = info["warmup_seconds_per_step"]
         full = step * steps / 60
-        progress.info(f"train: {steps} steps of {cfg.batch_size} at about {step:.2f} s a step "
-                      f"here: about {full:.1f} min (dev scoring not included)")  # fmt: skip
+        said = f"train: {steps} steps of {cfg.batch_size} at about {step:.2f} s a step here: " \
+               f"about {full:.1f} min"  # fmt: skip
+        if cfg.eval_steps:
+            said += f" (dev scoring every {cfg.eval_steps} steps not included)"
+        mixes = sum(1 for w in cfg.mix_weights if w)
+        if net_texts and mixes:
+            texts_a_step = cfg.batch_size * sum(1 for k in columns if k != "label")
+            info["net_minutes_per_weight"] = round(
+                budget.encoding_seconds(step, texts_a_step, net_texts) / 60, 2
+            )
+            fewest = min(2, mixes) if cfg.mix_search == "descend" else mixes
+            count = str(mixes) if fewest == mixes else f"{fewest} to {mixes}"
+            said += (f"; then the safety net, about {info['net_minutes_per_weight']:.1f} min "
+                     f"for each of the {count} weights it scores")  # fmt: skip
+        progress.info(said)
     else:
         kept = budget.choose(n, budget.cap(n, cfg, None), seed)
         info = {"pairs_available": n, "pairs_kept": len(kept), "max_pairs": cfg.max_pairs}
@@ -276,8 +290,10 @@ def train_model(
     dev: DevSet | None = None,
     progress: Progress = SILENT,
     teach: TeachConfig | None = None,
+    net_texts: int = 0,
 ) -> dict[str, Any]:
     """Fine-tune ``base`` on (anchor, positive, negatives) examples; save to ``out_dir``.
+    ``net_texts``: what the safety net will encode for each weight, for the estimate.
     With ``teach``, each example's ``candidates`` and ``labels`` (the teacher's standardised
     scores, positive first) train a distillation loss instead (stages/train/distill.py).
 
@@ -321,7 +337,8 @@ def train_model(
         columns["label"] = [e["labels"] for e in examples]
     loss = _loss(model, cfg) if teach is None else distillation_loss(model, teach)
     columns, estimate = _estimate(model, loss, columns, cfg, seed=seed, bf16=bf16,
-                                  work_dir=work_dir, progress=progress)  # fmt: skip
+                                  work_dir=work_dir, progress=progress,
+                                  net_texts=net_texts)  # fmt: skip
     n_examples = len(columns["anchor"])
     dataset = Dataset.from_dict(columns)
     texts = {k: v for k, v in columns.items() if k != "label"}

@@ -8,10 +8,21 @@ Scoring every interpolation over a whole corpus would encode it once per weight;
 weight re-ranks the same candidates: the base model's top ``CANDIDATES`` for every dev query
 plus the passages judged relevant (a common re-ranking approximation: a passage outside the
 base model's top 100 rarely enters another model's top 10).
+
+Each weight other than 0 costs one encoding of the candidates, so two things keep the net
+short (docs/scale.md measures both):
+
+- ``search = "descend"`` scores the weights from the largest down and stops at the first that
+  scores below the one before it: on a curve with a single peak, the same weight as scoring
+  them all. The base (0) costs nothing and is always scored. ``"all"`` scores every weight.
+- ``bf16``: the mixes are encoded under bfloat16 autocast (where training ran in bfloat16; rankings
+  within 0.003 nDCG@10 of float32 in docs/training.md). A weight kept by less than ``CLOSE``
+  over the base is scored again in float32 and kept only if it still beats the base there.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterable
 from typing import Any
 
 import numpy as np
@@ -19,6 +30,7 @@ import numpy as np
 from ballast.core.progress import SILENT, Progress
 
 CANDIDATES = 100
+CLOSE = 0.005  # above the largest bfloat16 difference measured (0.003)
 
 
 def interpolate(base: dict[str, Any], tuned: dict[str, Any], weight: float) -> dict[str, Any]:
@@ -34,6 +46,22 @@ def interpolate(base: dict[str, Any], tuned: dict[str, Any], weight: float) -> d
     return out
 
 
+def search(
+    weights: Iterable[float], score: Callable[[float], float], *, descend: bool
+) -> dict[float, float]:
+    """Each scored weight's score. Weight 0 first; then the others from the largest down,
+    all of them, or with ``descend`` until one scores below the one before it."""
+    weights = sorted(weights, reverse=True)
+    scores = {0.0: score(0.0)} if 0.0 in weights else {}
+    previous = None
+    for w in (x for x in weights if x != 0.0):
+        scores[w] = score(w)
+        if descend and previous is not None and scores[w] < previous:
+            break
+        previous = scores[w]
+    return scores
+
+
 def choose_weight(
     base_model: Any,
     tuned_model: Any,
@@ -41,11 +69,15 @@ def choose_weight(
     weights: tuple[float, ...],
     *,
     base_passages: np.ndarray,
+    descend: bool = False,
+    bf16: bool = False,
     progress: Progress = SILENT,
-) -> tuple[float, dict[str, float], int]:
-    """(the chosen weight, each weight's dev score, candidates scored). ``dev``: a train.full
-    DevSet; ``base_passages``: the base model's embeddings of ``dev.passage_texts``. Ties go to
-    the smaller weight (closer to the base). ``tuned_model`` ends holding the chosen weights."""
+) -> dict[str, Any]:
+    """What train.json records of the net: ``weight`` (the one kept), ``dev_scores`` (each
+    weight scored), ``candidates`` (passages scored), ``search``, ``precision`` and, when a
+    close weight was checked in float32, ``float32_check``. ``dev``: a train.full DevSet;
+    ``base_passages``: the base model's embeddings of ``dev.passage_texts``. Ties go to the
+    smaller weight (closer to the base). ``tuned_model`` ends holding the kept weights."""
     import torch
 
     from ballast.core.scoring import mean_metric, rank
@@ -58,18 +90,31 @@ def choose_weight(
     texts = [dev.passage_texts[index[p]] for p in keep]
     tuned_sd = {k: v.detach().clone() for k, v in tuned_model.state_dict().items()}
     base_sd = base_model.state_dict()
-    scores: dict[str, float] = {}
-    for w in weights:
+
+    def score(w: float, half: bool = bf16) -> float:
         if w == 0.0:
             q, p = q_base, base_passages[[index[x] for x in keep]]
         else:
             with torch.no_grad():
                 tuned_model.load_state_dict(interpolate(base_sd, tuned_sd, w))
-            q = encode(tuned_model, dev.query_texts, batch_size=dev.batch_size)
-            p = encode(tuned_model, texts, batch_size=dev.batch_size,
+            q = encode(tuned_model, dev.query_texts, batch_size=dev.batch_size, bf16=half)
+            p = encode(tuned_model, texts, batch_size=dev.batch_size, bf16=half,
                        label=f"train: dev passages at weight {w:g}", progress=progress)  # fmt: skip
-        scores[f"{w:g}"] = round(mean_metric(q, p, keep, dev.qrels, dev.metric), 6)
-    best = max(weights, key=lambda w: (scores[f"{w:g}"], -w))
+        return round(mean_metric(q, p, keep, dev.qrels, dev.metric), 6)
+
+    scores = search(weights, score, descend=descend)
+    best = max(scores, key=lambda w: (scores[w], -w))
+    out: dict[str, Any] = {
+        "dev_scores": {f"{w:g}": s for w, s in sorted(scores.items())},
+        "candidates": len(keep),
+        "search": "descend" if descend else "all",
+        "precision": "bfloat16" if bf16 else "float32",
+    }
+    if bf16 and best != 0.0 and 0.0 in scores and scores[best] - scores[0.0] < CLOSE:
+        exact = score(best, half=False)  # base embeddings are float32 already
+        out["float32_check"] = {f"{best:g}": exact, "0": scores[0.0]}
+        if exact <= scores[0.0]:
+            best = 0.0
     with torch.no_grad():
         tuned_model.load_state_dict(interpolate(base_sd, tuned_sd, best))
-    return best, scores, len(keep)
+    return {"weight": best, **out}
