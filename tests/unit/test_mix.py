@@ -10,7 +10,7 @@ import pytest
 import torch
 
 from ballast.stages.train.full import DevSet
-from ballast.stages.train.mix import choose_weight, interpolate, search
+from ballast.stages.train.mix import choose_weight, interpolate, keep_best, search
 
 N, DIM = 60, 16
 rng = np.random.default_rng(7)
@@ -137,5 +137,16 @@ def test_a_close_bf16_win_is_checked_in_float32(
                         base_passages=base.encode(TEXTS), bf16=True)  # fmt: skip
     assert net["precision"] == "bfloat16" and net["dev_scores"]["1"] == 1.0  # flattered
     check = net["float32_check"]
-    assert check["0"] == net["dev_scores"]["0"]
-    assert (check["1"] > check["0"]) == (kept == 1.0) and net["weight"] == kept
+    assert list(check) == ["1"] and net["weight"] == kept
+    assert (check["1"] > net["dev_scores"]["0"]) == (kept == 1.0)
+
+
+def test_a_close_win_refuted_in_float32_falls_to_the_next_best_not_the_base() -> None:
+    # a 27-query dev curve in bfloat16 (the two-process training test): 0.25 wins by 0.0032,
+    # float32 has it below the base; 0.5 wins by 0.0021 and holds in float32
+    scores = {0.0: 0.880149, 0.25: 0.883375, 0.5: 0.88224, 0.75: 0.840385, 1.0: 0.821204}
+    exact = {0.25: 0.878525, 0.5: 0.88224}
+    best, checked = keep_best(scores, exact.__getitem__, close=0.005)
+    assert best == 0.5 and checked == exact
+    assert keep_best(scores, lambda w: 0.0, close=0.005) == (0.0, {0.25: 0.0, 0.5: 0.0})
+    assert keep_best(scores, exact.__getitem__, close=0) == (0.25, {})  # float32: no check

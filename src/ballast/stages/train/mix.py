@@ -62,6 +62,26 @@ def search(
     return scores
 
 
+def keep_best(
+    scores: dict[float, float], exact: Callable[[float], float], *, close: float
+) -> tuple[float, dict[float, float]]:
+    """(the weight kept, the float32 scores checked). The best-scoring weight, ties to the
+    smaller, the base (0) when nothing beats it; a weight that beats the base by less than
+    ``close`` is kept only if ``exact`` (float32) still has it above the base, else the next
+    best is tried. Without a score for 0, nothing is compared to the base."""
+    base = scores.get(0.0, float("-inf"))
+    checked: dict[float, float] = {}
+    for w in sorted((w for w in scores if w != 0.0), key=lambda w: (-scores[w], w)):
+        if scores[w] <= base:
+            break
+        if scores[w] - base >= close:
+            return w, checked
+        checked[w] = exact(w)
+        if checked[w] > base:
+            return w, checked
+    return (0.0 if 0.0 in scores else max(scores, key=lambda w: (scores[w], -w))), checked
+
+
 def choose_weight(
     base_model: Any,
     tuned_model: Any,
@@ -103,18 +123,15 @@ def choose_weight(
         return round(mean_metric(q, p, keep, dev.qrels, dev.metric), 6)
 
     scores = search(weights, score, descend=descend)
-    best = max(scores, key=lambda w: (scores[w], -w))
     out: dict[str, Any] = {
         "dev_scores": {f"{w:g}": s for w, s in sorted(scores.items())},
         "candidates": len(keep),
         "search": "descend" if descend else "all",
         "precision": "bfloat16" if bf16 else "float32",
     }
-    if bf16 and best != 0.0 and 0.0 in scores and scores[best] - scores[0.0] < CLOSE:
-        exact = score(best, half=False)  # base embeddings are float32 already
-        out["float32_check"] = {f"{best:g}": exact, "0": scores[0.0]}
-        if exact <= scores[0.0]:
-            best = 0.0
+    best, checked = keep_best(scores, lambda w: score(w, half=False), close=CLOSE if bf16 else 0)
+    if checked:
+        out["float32_check"] = {f"{w:g}": s for w, s in checked.items()}
     with torch.no_grad():
         tuned_model.load_state_dict(interpolate(base_sd, tuned_sd, best))
     return {"weight": best, **out}
