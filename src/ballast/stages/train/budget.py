@@ -27,8 +27,8 @@ def seconds_per_step(
     """Seconds of one training step (forward and backward of ``loss`` on ``batch_size``
     examples), the fastest of ``WARMUP_STEPS`` after one untimed step: steps keep getting
     faster for several steps (measured on one batch of 32, bfloat16: 10.4, 9.5, 7.5, 6.5,
-    5.9 s, where training then ran at 3.9 s a step; docs/scale.md), so even the fastest reads
-    high. Gradients are dropped and no weight changes."""
+    5.9 s, on a run whose training steps had averaged 3.9 s; docs/scale.md), so even the
+    fastest reads high. Gradients are dropped and no weight changes."""
     import torch
 
     n = len(next(iter(columns.values())))

@@ -17,7 +17,8 @@ short (docs/scale.md measures both):
   them all. The base (0) costs nothing and is always scored. ``"all"`` scores every weight.
 - ``bf16``: the mixes are encoded under bfloat16 autocast (where training ran in bfloat16; rankings
   within 0.003 nDCG@10 of float32 in docs/training.md). A weight kept by less than ``CLOSE``
-  over the base is scored again in float32 and kept only if it still beats the base there.
+  over the base is scored again in float32 and kept only if it still beats the base there;
+  else the next best is tried, then the base.
 """
 
 from __future__ import annotations
@@ -79,7 +80,7 @@ def keep_best(
         checked[w] = exact(w)
         if checked[w] > base:
             return w, checked
-    return (0.0 if 0.0 in scores else max(scores, key=lambda w: (scores[w], -w))), checked
+    return 0.0, checked  # reached only when 0 is scored and nothing beats it
 
 
 def choose_weight(
