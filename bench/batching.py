@@ -84,7 +84,8 @@ def bare(base: Path, ex: list[dict], work: Path, bf16: bool) -> float:
 def main(argv: list[str] | None = None) -> int:
     from ballast.config import TrainConfig
     from ballast.models.loading import load_encoder, load_tokenizer
-    from ballast.stages.train.full import train_model, use_bf16
+    from ballast.models.precision import use_bf16
+    from ballast.stages.train.full import train_model
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("run", type=Path)

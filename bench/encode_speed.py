@@ -4,12 +4,14 @@ rankings.
     python -m bench.encode_speed RUN_FOLDER [--passages N]
 
 Reads a run folder's passages.jsonl and queries.jsonl (real questions, origin "human", when there
-are some, else every query); encodes the passages and queries with PyTorch in float32 (the
-reference), PyTorch under bfloat16 autocast, ONNX Runtime float32 and ONNX Runtime with int8
-weights (dynamic quantisation), the ONNX inputs sorted by length as sentence-transformers sorts
-its own. Prints passages/s, the ratio to PyTorch float32, the largest embedding difference, and
-nDCG@10 over the whole corpus with the difference to the reference. The machine's CPU model and
-flags come first: bfloat16 is fast only where the CPU has it natively (avx512_bf16, amx_bf16).
+are some, else every query); encodes the passages and queries with PyTorch in float32 as the
+stages do (``models.encode``, batches of 64 in the order given: the reference), the same with
+the texts sorted longest first (each batch padded to about its own length), PyTorch under
+bfloat16 autocast (``evaluate.bf16``), ONNX Runtime float32 and ONNX Runtime with int8 weights
+(dynamic quantisation), the ONNX inputs sorted longest first. Prints passages/s, the ratio to
+the reference, the largest embedding difference from it, and nDCG@10 over the whole corpus
+with the difference to the reference. The machine's CPU model and flags come first: bfloat16
+is fast only where the CPU has it natively (avx512_bf16, amx_bf16).
 """
 
 from __future__ import annotations
@@ -40,13 +42,14 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("run", type=Path)
     ap.add_argument("--passages", type=int, default=2000)
+    ap.add_argument("--queries", type=int, default=0, help="at most this many (0: all)")
     args = ap.parse_args(argv)
     rows = lambda name: [json.loads(x) for x in (args.run / name).read_text("utf-8").splitlines()]  # noqa: E731
     passages = rows("passages.jsonl")[: args.passages]
     have = {p["id"] for p in passages}
     queries = [q for q in rows("queries.jsonl") if q["passage_id"] in have]
     human = [q for q in queries if q.get("origin") == "human"]
-    queries = human or queries
+    queries = (human or queries)[: args.queries or None]
     texts, ids = [p["text"] for p in passages], [p["id"] for p in passages]
     qrels = qrels_for(queries)
     judged = [{p: g for p, g in qrels[q["id"]].items() if p in have} for q in queries]
@@ -56,28 +59,34 @@ def main(argv: list[str] | None = None) -> int:
     export_onnx(base, tmp / "model.onnx")
     quantize_int8(tmp / "model.onnx", tmp / "model_int8.onnx")
 
-    def sorted_encode(enc: OnnxEncoder, items: list[str]) -> np.ndarray:
-        order = np.argsort([-len(t) for t in items], kind="stable")
-        out = enc.encode([items[i] for i in order], batch_size=64)
-        back = np.empty_like(out)
-        back[order] = out
-        return back
+    def longest_first(fn):  # noqa: ANN001, ANN202
+        """``fn`` over the texts sorted longest first (as sentence-transformers sorts within one
+        call), the rows put back in the order given."""
 
-    def bf16(items: list[str]) -> np.ndarray:
-        with torch.autocast("cpu", dtype=torch.bfloat16):
-            return encode(model, items, batch_size=64)
+        def run(items: list[str]) -> np.ndarray:
+            order = np.argsort([-len(t) for t in items], kind="stable")
+            out = fn([items[i] for i in order])
+            back = np.empty_like(out)
+            back[order] = out
+            return back
+
+        return run
 
     fp32 = OnnxEncoder(tmp / "model.onnx", model.tokenizer, 128)
     int8 = OnnxEncoder(tmp / "model_int8.onnx", model.tokenizer, 128)
     backends = {
-        "torch float32": lambda items: encode(model, items, batch_size=64),
-        "torch bfloat16 autocast": bf16,
-        "onnx float32": lambda items: sorted_encode(fp32, items),
-        "onnx int8": lambda items: sorted_encode(int8, items),
+        "torch float32 (as the stages encode)": lambda items: encode(model, items, batch_size=64),
+        "torch float32, longest first":
+            longest_first(lambda items: encode(model, items, batch_size=64)),
+        "torch bfloat16 autocast (evaluate.bf16)":
+            lambda items: encode(model, items, batch_size=64, bf16=True),
+        "onnx float32, longest first":
+            longest_first(lambda items: fp32.encode(items, batch_size=64)),
+        "onnx int8, longest first": longest_first(lambda items: int8.encode(items, batch_size=64)),
     }
     print(f"machine: {cpu()}; torch threads {torch.get_num_threads()}")
     print(f"{len(texts)} passages, {len(queries)} {'real' if human else 'synthetic'} queries\n")
-    print("| backend | passages/s | vs torch float32 | max abs diff | nDCG@10 | diff |")
+    print("| backend | passages/s | vs the reference | max abs diff | nDCG@10 | diff |")
     print("|---|---|---|---|---|---|")
     ref = ref_q = ref_ndcg = rate0 = None
     for name, fn in backends.items():

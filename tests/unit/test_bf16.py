@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-import ballast.stages.train.full as train
+import ballast.models.precision as train
 from ballast.config import TrainConfig
 
 

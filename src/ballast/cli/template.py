@@ -156,6 +156,8 @@ confidence = 0.95
 batch_size = 64
 encode_devices = []        # e.g. ["cuda:0", "cuda:1"]: encode passages (mine, evaluate) in one
                            # process per device; [] = in this process
+bf16 = "auto"              # encode (every stage, base and tuned alike) under bfloat16 autocast
+                           # where it is native, as train.bf16; false = float32
 references = ["bm25", "hybrid"]  # lexical reference rows (never gated): BM25, and each model
                            # fused with BM25 by reciprocal rank fusion (NAME+bm25)
 

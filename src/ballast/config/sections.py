@@ -427,6 +427,11 @@ class EvaluateConfig:
     # encoding), e.g. ["cuda:0", "cuda:1"]; fewer than two = in this process. Used by mine
     # and evaluate.
     encode_devices: tuple[str, ...] = ()
+    # bfloat16 autocast for every encoding the stages make with torch (synth's round trip,
+    # check, mine, teach, the safety net's base passages, evaluate): true, false, or "auto"
+    # (on where bfloat16 is native, as train.bf16). Rankings within a measured tolerance of
+    # float32 (docs/scale.md); base and tuned are always encoded alike. false = float32.
+    bf16: bool | str = "auto"
     # lexical reference rows, never gated: "bm25" (BM25 over the same passages) and "hybrid"
     # (each model fused with BM25 by reciprocal rank fusion, NAME+bm25)
     references: tuple[str, ...] = ("bm25", "hybrid")

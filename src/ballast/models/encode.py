@@ -42,7 +42,11 @@ def encode(
 ) -> np.ndarray:
     """Unit-normalised float32 embeddings, one row per text, in order; with a ``pool`` from
     ``device_pool``, each batch is shared out over its processes; with ``bf16``, computed
-    under bfloat16 autocast on the CPU (fast only where the CPU has it natively)."""
+    under bfloat16 autocast on the CPU (fast only where the CPU has it natively).
+
+    The batches keep the order given: encoding longest first (each batch padded to about its
+    own length) measured 0.90-0.97x the speed of this on two real collections
+    (bench/encode_speed.py, docs/scale.md)."""
     import torch
 
     out = []
@@ -70,17 +74,22 @@ def encode(
 
 
 class EmbeddingCache:
-    """Embeddings stored as ``<dir>/<model fp>/<hash of the texts>.npy``; writes are atomic."""
+    """Embeddings stored as ``<dir>/<model fp>/<hash of the texts>.npy``; writes are atomic.
+    The hash covers the token limit and, for bfloat16 encodings, the precision (float32
+    entries keep the key they had before bfloat16 existed)."""
 
     def __init__(self, root: str | Path) -> None:
         self.root = Path(root)
 
-    def _path(self, model_fp: str, texts: list[str], max_seq_length: int) -> Path:
-        h = sha256_bytes("\0".join([str(max_seq_length), *texts]).encode("utf-8"))
+    def _path(self, model_fp: str, texts: list[str], max_seq_length: int, bf16: bool) -> Path:
+        head = [str(max_seq_length), "bfloat16"] if bf16 else [str(max_seq_length)]
+        h = sha256_bytes("\0".join([*head, *texts]).encode("utf-8"))
         return self.root / model_fp[:24] / f"{h[:32]}.npy"
 
-    def get(self, model_fp: str, texts: list[str], max_seq_length: int) -> np.ndarray | None:
-        path = self._path(model_fp, texts, max_seq_length)
+    def get(
+        self, model_fp: str, texts: list[str], max_seq_length: int, bf16: bool = False
+    ) -> np.ndarray | None:
+        path = self._path(model_fp, texts, max_seq_length, bf16)
         if not path.is_file():
             return None
         try:
@@ -89,8 +98,11 @@ class EmbeddingCache:
             return None  # a damaged entry is recomputed
         return arr if arr.shape[0] == len(texts) else None
 
-    def put(self, model_fp: str, texts: list[str], max_seq_length: int, emb: np.ndarray) -> None:
-        with atomic_file(self._path(model_fp, texts, max_seq_length)) as fh:
+    def put(
+        self, model_fp: str, texts: list[str], max_seq_length: int, emb: np.ndarray,
+        bf16: bool = False,
+    ) -> None:  # fmt: skip
+        with atomic_file(self._path(model_fp, texts, max_seq_length, bf16)) as fh:
             np.save(fh, emb, allow_pickle=False)
 
 
@@ -104,14 +116,19 @@ def encode_cached(
     label: str = "encoding",
     progress: Progress = SILENT,
     pool: Any = None,
+    bf16: bool = False,
 ) -> np.ndarray:
+    """``encode`` through ``cache`` (none: encode every time); bfloat16 and float32
+    encodings are cached apart."""
     msl = int(getattr(model, "max_seq_length", 0) or 0)
     if cache is not None:
-        hit = cache.get(model_fp, texts, msl)
+        hit = cache.get(model_fp, texts, msl, bf16)
         if hit is not None:
             progress.info(f"{label}: {len(texts)} embeddings from cache")
             return hit
-    emb = encode(model, texts, batch_size=batch_size, label=label, progress=progress, pool=pool)
+    emb = encode(
+        model, texts, batch_size=batch_size, label=label, progress=progress, pool=pool, bf16=bf16
+    )
     if cache is not None:
-        cache.put(model_fp, texts, msl, emb)
+        cache.put(model_fp, texts, msl, emb, bf16)
     return emb

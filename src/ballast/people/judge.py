@@ -165,13 +165,11 @@ def system_rankings(run: Any, texts: Sequence[str], k: int) -> dict[str, list[li
     model, the tuned model (when trained; with its query route) and BM25."""
     from ballast.core.lexical import BM25, bm25_rank
     from ballast.core.scoring import rank
-    from ballast.models.encode import encode_cached
     from ballast.models.loading import load_encoder, model_fingerprint
     from ballast.models.query_map import query_route
 
     passages = run.passages()
     pids, ptexts = [p["id"] for p in passages], [p["text"] for p in passages]
-    cache, bs = run.cache(), run.cfg.evaluate.batch_size
     systems: dict[str, tuple[Any, str, Any]] = {
         "base": (run.base_encoder(), run.base_fp, lambda e: e)
     }
@@ -181,10 +179,8 @@ def system_rankings(run: Any, texts: Sequence[str], k: int) -> dict[str, list[li
         systems["tuned"] = (model, model_fingerprint(tuned), query_route(tuned))
     out: dict[str, list[list[str]]] = {}
     for name, (model, fp, to_query) in systems.items():
-        p_emb = encode_cached(model, fp, ptexts, cache, batch_size=bs,
-                              label=f"encoding passages ({name})", progress=run.progress)
-        q_emb = to_query(encode_cached(model, fp, list(texts), cache, batch_size=bs,
-                                       label=f"encoding queries ({name})", progress=run.progress))
-        out[name], _ = rank(q_emb, p_emb, pids, k)  # fmt: skip
+        p_emb = run.encode(model, fp, ptexts, f"encoding passages ({name})")
+        q_emb = to_query(run.encode(model, fp, list(texts), f"encoding queries ({name})"))
+        out[name], _ = rank(q_emb, p_emb, pids, k)
     out["bm25"], _ = bm25_rank(BM25(ptexts), list(texts), pids, k)
     return out

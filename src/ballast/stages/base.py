@@ -68,6 +68,25 @@ class Run:
 
         return load_encoder(self.base_path, max_seq_length=self.cfg.train.max_seq_length)
 
+    @property
+    def encode_bf16(self) -> bool:
+        """``evaluate.bf16`` resolved: whether the stages encode under bfloat16 autocast."""
+        from ballast.models.precision import use_bf16
+
+        return use_bf16(self.cfg.evaluate.bf16)
+
+    def encode(
+        self, model: Any, model_fp: str, texts: list[str], label: str, pool: Any = None
+    ) -> np.ndarray:
+        """Embeddings as every stage makes them: ``evaluate.batch_size``, ``evaluate.bf16``,
+        through the run's embedding cache."""
+        from ballast.models.encode import encode_cached
+
+        return encode_cached(
+            model, model_fp, texts, self.cache(), batch_size=self.cfg.evaluate.batch_size,
+            label=label, progress=self.progress, pool=pool, bf16=self.encode_bf16,
+        )  # fmt: skip
+
     def need(self, name: str, made_by: str) -> Path:
         p = self.path(name)
         if not p.exists():

@@ -57,7 +57,6 @@ def _detectable(run: Run, counts: dict[str, int]) -> dict[str, dict[str, float]]
     from ballast.core.records import qrels_for
     from ballast.core.scoring import metric_values
     from ballast.core.stats import min_detectable_effect
-    from ballast.models.encode import encode_cached
 
     cfg = run.cfg.gate
     if not counts:
@@ -65,19 +64,15 @@ def _detectable(run: Run, counts: dict[str, int]) -> dict[str, dict[str, float]]
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     by_qid = {q["id"]: q for q in queries}
     qrels = qrels_for(queries)
-    model, cache, bs = run.base_encoder(), run.cache(), run.cfg.evaluate.batch_size
+    model = run.base_encoder()
     pids = [p["id"] for p in passages]
-    p_emb = encode_cached(
-        model, run.base_fp, [p["text"] for p in passages], cache,
-        batch_size=bs, label="encoding passages (base)", progress=run.progress,
-    )  # fmt: skip
+    p_emb = run.encode(model, run.base_fp, [p["text"] for p in passages],
+                       "encoding passages (base)")  # fmt: skip
     out = {}
     for split in counts:
         qids = splits["queries"][split]
-        q_emb = encode_cached(
-            model, run.base_fp, [by_qid[q]["text"] for q in qids], cache,
-            batch_size=bs, label=f"encoding {split} queries (base)", progress=run.progress,
-        )  # fmt: skip
+        q_emb = run.encode(model, run.base_fp, [by_qid[q]["text"] for q in qids],
+                           f"encoding {split} queries (base)")  # fmt: skip
         values = metric_values(q_emb, p_emb, pids, [qrels[q] for q in qids], cfg.primary_metric)
         sd = float(np.std(values, ddof=1)) if len(values) > 1 else 0.0
         out[split] = {
@@ -99,6 +94,7 @@ STAGE = Stage(
         "gate.primary_metric",
         "gate.alpha",
         "evaluate.batch_size",
+        "evaluate.bf16",
         "train.max_seq_length",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),

@@ -132,6 +132,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         dims=run.cfg.train.matryoshka_dims,
         devices=cfg.encode_devices,
         references=cfg.references,
+        bf16=run.encode_bf16,
         progress=run.progress,
     )
     truncated = {  # Matryoshka: the same models at smaller sizes, named NAME@DIM
@@ -149,6 +150,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         pairs=(("tuned", "bm25"),),
     )
     summary["skipped_splits"] = skipped
+    summary["encoding"] = "bfloat16" if run.encode_bf16 else "float32"
     if "guard" in corpora:
         summary["guard_left_out"] = guard_left_out
     write_evaluation(run.dir, summary, per_query_rows(per_query, sets, metrics), run_files)
@@ -171,6 +173,7 @@ def evaluate_files(
     from ballast.core.errors import InputError
     from ballast.models.encode import EmbeddingCache
     from ballast.models.loading import model_fingerprint, resolve_model
+    from ballast.models.precision import use_bf16
     from ballast.stages.evaluate.compute import per_query_rows, run_models, summarise
 
     named: dict[str, tuple[Path, str]] = {}
@@ -200,6 +203,7 @@ def evaluate_files(
         batch_size=ev.batch_size,
         max_seq_length=None,
         references=ev.references,
+        bf16=use_bf16(ev.bf16),
         progress=progress,
     )
     baseline = next(iter(named))
@@ -213,6 +217,7 @@ def evaluate_files(
         resamples=ev.bootstrap_resamples,
         confidence=ev.confidence,
     )
+    summary["encoding"] = "bfloat16" if use_bf16(ev.bf16) else "float32"
     summary["queries_without_judgements"] = unjudged
     summary["qrels_for_unknown_queries"] = unknown
     if unknown:

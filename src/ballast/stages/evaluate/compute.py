@@ -49,6 +49,7 @@ def run_models(
     dims: tuple[int, ...] = (),
     devices: tuple[str, ...] = (),
     references: tuple[str, ...] = (),
+    bf16: bool = False,
     progress: Progress = SILENT,
 ) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
     """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``.
@@ -57,7 +58,8 @@ def run_models(
     embeddings truncated to their first DIM dimensions (no second encoding). With two or more
     ``devices``, corpora are encoded by one process per device. ``references``: "bm25" adds
     BM25 over the same corpus as model ``bm25``; "hybrid" adds, for each model, the reciprocal
-    rank fusion of its ranking with BM25's, as ``NAME+bm25`` (core/lexical.py)."""
+    rank fusion of its ranking with BM25's, as ``NAME+bm25`` (core/lexical.py). ``bf16``: every
+    model encoded under bfloat16 autocast (all alike, so the comparison stays paired)."""
     from ballast.models.encode import device_pool, encode_cached
     from ballast.models.loading import load_encoder
     from ballast.models.query_map import query_route
@@ -81,6 +83,7 @@ def run_models(
                     label=f"encoding {c} passages ({name})",
                     progress=progress,
                     pool=pool,
+                    bf16=bf16,
                 )
                 for c in sorted({s.corpus for s in sets})
             }
@@ -94,6 +97,7 @@ def run_models(
                     batch_size=batch_size,
                     label=f"encoding {s.name} queries ({name})",
                     progress=progress,
+                    bf16=bf16,
                 )
             )
             full = q_emb.shape[1]

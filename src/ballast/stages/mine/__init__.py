@@ -23,19 +23,11 @@ AUDIT_SHOWN = 8  # dropped candidates shown per query, best ranked first
 
 
 def _base_corpus_embeddings(run: Run, model: Any, passages: list[dict]) -> np.ndarray:
-    from ballast.models.encode import device_pool, encode_cached
+    from ballast.models.encode import device_pool
 
     with device_pool(model, run.cfg.evaluate.encode_devices) as pool:
-        return encode_cached(
-            model,
-            run.base_fp,
-            [p["text"] for p in passages],
-            run.cache(),
-            batch_size=run.cfg.evaluate.batch_size,
-            label="encoding passages (base)",
-            progress=run.progress,
-            pool=pool,
-        )
+        texts = [p["text"] for p in passages]
+        return run.encode(model, run.base_fp, texts, "encoding passages (base)", pool=pool)
 
 
 def _rec(tp: list[dict], c: dict) -> dict:
@@ -70,6 +62,7 @@ def mine(run: Run) -> dict[str, Any]:
         batch_size=run.cfg.evaluate.batch_size,
         label="encoding training queries",
         progress=run.progress,
+        bf16=run.encode_bf16,
     )
     # The positive's score the ceilings compare with: by default the positive passage as it
     # stands in the corpus, scored like every candidate; or the text the pair trains on (for a
@@ -82,6 +75,7 @@ def mine(run: Run) -> dict[str, Any]:
             batch_size=run.cfg.evaluate.batch_size,
             label="encoding training positives",
             progress=run.progress,
+            bf16=run.encode_bf16,
         )
     else:
         pos_texts = [by_pid[q["passage_id"]]["text"] for q in qs]
@@ -268,7 +262,8 @@ def _rescorer_model(run: Run) -> dict[str, str]:
 STAGE = Stage(
     "mine",
     mine,
-    keys=("mine", "seed", "train.max_seq_length", "evaluate.batch_size", "evaluate.encode_devices"),
+    keys=("mine", "seed", "train.max_seq_length", "evaluate.batch_size", "evaluate.encode_devices",
+          "evaluate.bf16"),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),
     outputs=("negatives.jsonl", "negatives_sample.md"),
     external=_rescorer_model,

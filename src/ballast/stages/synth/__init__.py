@@ -53,22 +53,14 @@ def _round_trip(run: Run, queries: list[dict], passages: list[dict]) -> tuple[li
     """Round-trip consistency (Dai et al., ICLR 2023): the base model ranks the corpus for
     each generated query; a query whose passage is not in the top k is dropped."""
     from ballast.core.search import top_k
-    from ballast.models.encode import encode_cached
     from ballast.stages.synth.filters import round_trip_filter
 
     if not queries or not passages:
         return queries, []
     model = run.base_encoder()
-    cache, bs = run.cache(), run.cfg.evaluate.batch_size
     ids = [p["id"] for p in passages]
-    p_emb = encode_cached(
-        model, run.base_fp, [p["text"] for p in passages], cache,
-        batch_size=bs, label="round-trip passages", progress=run.progress,
-    )  # fmt: skip
-    q_emb = encode_cached(
-        model, run.base_fp, [q["text"] for q in queries], cache,
-        batch_size=bs, label="round-trip queries", progress=run.progress,
-    )  # fmt: skip
+    p_emb = run.encode(model, run.base_fp, [p["text"] for p in passages], "round-trip passages")
+    q_emb = run.encode(model, run.base_fp, [q["text"] for q in queries], "round-trip queries")
     k = run.cfg.synth.round_trip_k
     idx, _ = top_k(q_emb, p_emb, k, ids)
     return round_trip_filter(queries, [[ids[i] for i in row] for row in idx], k)
@@ -107,7 +99,7 @@ def external_inputs(run: Run) -> dict[str, str]:
 STAGE = Stage(
     "synth",
     synth,
-    keys=("synth", "seed", "evaluate.batch_size", "train.max_seq_length"),
+    keys=("synth", "seed", "evaluate.batch_size", "evaluate.bf16", "train.max_seq_length"),
     inputs=("passages.jsonl",),
     outputs=("queries.jsonl",),
     external=external_inputs,

@@ -90,7 +90,6 @@ def check_teacher(
 def teach(run: Run) -> dict[str, Any]:
     from ballast.core.search import top_k
     from ballast.core.teaching import candidate_lists
-    from ballast.models.encode import encode_cached
 
     cfg = run.cfg.teach
     info: dict[str, Any] = {"teacher": cfg.teacher, "model": cfg.model or None}
@@ -105,9 +104,7 @@ def teach(run: Run) -> dict[str, Any]:
     model = run.base_encoder()
 
     def enc(items: list[str], label: str) -> np.ndarray:
-        return encode_cached(model, run.base_fp, items, run.cache(),
-                             batch_size=run.cfg.evaluate.batch_size, label=label,
-                             progress=run.progress)  # fmt: skip
+        return run.encode(model, run.base_fp, items, label)
 
     p_emb = enc(texts, "encoding passages (base)")
     teacher = _teacher(run, texts, p_emb, lambda t: enc(t, "encoding queries (base)"))
@@ -190,6 +187,7 @@ STAGE = Stage(
         "gate.primary_metric",  # the teacher check's metric
         "train.max_seq_length",  # the base model's encoding length
         "evaluate.batch_size",
+        "evaluate.bf16",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),
     outputs=("labels.jsonl", "teacher.json"),

@@ -206,24 +206,22 @@ def _safety_net(
     if not (splits["queries"].get("dev") or splits["queries"].get("human_dev")):
         run.progress.info("train: no dev queries, so the base/tuned mix is not chosen; tuned kept")
         return None
-    from ballast.models.encode import encode_cached
     from ballast.models.loading import load_encoder
-    from ballast.stages.train.full import use_bf16
+    from ballast.models.precision import use_bf16
     from ballast.stages.train.mix import choose_weight
 
     dev = dev or dev_set(run, passages, queries, splits)
     base = run.base_encoder()
-    base_passages = encode_cached(
-        base, run.base_fp, dev.passage_texts, run.cache(), batch_size=dev.batch_size,
-        label="encoding passages (base)", progress=run.progress,
-    )  # fmt: skip
+    base_passages = run.encode(base, run.base_fp, dev.passage_texts, "encoding passages (base)")
+    base_queries = run.encode(base, run.base_fp, dev.query_texts, "encoding dev queries (base)")
     tuned = load_encoder(model_dir, max_seq_length=run.cfg.train.max_seq_length)
     descend = run.cfg.train.mix_search == "descend"
     run.progress.info(f"train: scoring base/tuned mixes {', '.join(f'{w:g}' for w in weights)}"
                       f"{' (largest first, until the score falls)' if descend else ''} "
                       f"on {len(dev.query_texts)} dev queries")  # fmt: skip
     net = choose_weight(
-        base, tuned, dev, weights, base_passages=base_passages, descend=descend,
+        base, tuned, dev, weights, base_passages=base_passages, base_queries=base_queries,
+        descend=descend,
         bf16=use_bf16(run.cfg.train.bf16), progress=run.progress,
     )  # fmt: skip
     if net["weight"] != 1.0:
@@ -255,7 +253,6 @@ def train_frozen_adapter(
     either way."""
     import numpy as np
 
-    from ballast.models.encode import encode_cached
     from ballast.models.query_map import (
         ADAPTER_FILE,
         append_dense,
@@ -272,15 +269,7 @@ def train_frozen_adapter(
     model = run.base_encoder()
 
     def enc(texts: list[str], label: str) -> np.ndarray:
-        return encode_cached(
-            model,
-            run.base_fp,
-            texts,
-            run.cache(),
-            batch_size=run.cfg.evaluate.batch_size,
-            label=label,
-            progress=run.progress,
-        )
+        return run.encode(model, run.base_fp, texts, label)
 
     texts = [p["text"] for p in passages]
     emb = enc(texts, "encoding passages (base)")
@@ -355,6 +344,7 @@ STAGE = Stage(
         "seed",
         "mine.negatives",
         "evaluate.batch_size",
+        "evaluate.bf16",  # the base model's encodings (the adapter, the safety net)
         "gate.primary_metric",  # the metric that picks the best dev checkpoint
         "gate.splits",  # the pre-flight count check
         "gate.min_queries",

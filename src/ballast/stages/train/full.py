@@ -17,6 +17,7 @@ from typing import Any
 from ballast.config import TeachConfig, TrainConfig
 from ballast.core.progress import SILENT, Progress
 from ballast.models.loading import load_encoder
+from ballast.models.precision import cpu_bf16_native, use_bf16
 from ballast.stages.train.distill import distillation_loss
 
 
@@ -25,29 +26,6 @@ def process_rank() -> tuple[int, int]:
     import os
 
     return int(os.environ.get("RANK", "0")), int(os.environ.get("WORLD_SIZE", "1"))
-
-
-def cpu_bf16_native() -> bool:
-    """Whether this CPU has bfloat16 instructions (AVX-512 BF16 or AMX BF16, Linux flags);
-    without them bf16 autocast on the CPU is emulated and usually slower than float32."""
-    try:
-        flags = Path("/proc/cpuinfo").read_text("utf-8", errors="replace")
-    except OSError:
-        return False
-    return "avx512_bf16" in flags or "amx_bf16" in flags
-
-
-def use_bf16(setting: bool | str) -> bool:
-    """``train.bf16`` resolved: true or false as set; "auto" is on where bfloat16 arithmetic is
-    native (a CUDA GPU that supports it, or a CPU with AVX-512 BF16 or AMX) and off elsewhere,
-    where emulated autocast is much slower (docs/training.md)."""
-    if setting != "auto":
-        return bool(setting)
-    import torch
-
-    if torch.cuda.is_available():
-        return bool(torch.cuda.is_bf16_supported())
-    return cpu_bf16_native()
 
 
 def _callback(progress: Progress, history: list[dict]) -> Any:

@@ -90,6 +90,7 @@ def choose_weight(
     weights: tuple[float, ...],
     *,
     base_passages: np.ndarray,
+    base_queries: np.ndarray | None = None,
     descend: bool = False,
     bf16: bool = False,
     progress: Progress = SILENT,
@@ -97,14 +98,17 @@ def choose_weight(
     """What train.json records of the net: ``weight`` (the one kept), ``dev_scores`` (each
     weight scored), ``candidates`` (passages scored), ``search``, ``precision`` and, when a
     close weight was checked in float32, ``float32_check``. ``dev``: a train.full DevSet;
-    ``base_passages``: the base model's embeddings of ``dev.passage_texts``. Ties go to the
+    ``base_passages``: the base model's embeddings of ``dev.passage_texts``, ``base_queries``
+    of ``dev.query_texts`` (none: encoded here, in float32). Ties go to the
     smaller weight (closer to the base). ``tuned_model`` ends holding the kept weights."""
     import torch
 
     from ballast.core.scoring import mean_metric, rank
     from ballast.models.encode import encode
 
-    q_base = encode(base_model, dev.query_texts, batch_size=dev.batch_size)
+    q_base = base_queries
+    if q_base is None:
+        q_base = encode(base_model, dev.query_texts, batch_size=dev.batch_size)
     ranked, _ = rank(q_base, base_passages, dev.passage_ids, CANDIDATES)
     keep = sorted({p for r in ranked for p in r} | {p for q in dev.qrels for p in q})
     index = {p: i for i, p in enumerate(dev.passage_ids)}
