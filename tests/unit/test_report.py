@@ -88,6 +88,15 @@ def test_report_shows_what_the_issue_asks_for(tmp_path: Path) -> None:
     assert render_html(inp) == html and render_markdown(inp) == render_markdown(inp)
 
 
+def test_the_encoding_precision_is_said_only_when_it_is_bfloat16(tmp_path: Path) -> None:
+    inp = _inputs(tmp_path)
+    for encoding, said in (("bfloat16", True), ("float32", False), (None, False)):
+        metrics = {**inp.metrics, "encoding": encoding}
+        shown = dataclasses.replace(inp, metrics=metrics)
+        for page in (render_html(shown), render_markdown(shown)):
+            assert ("computed in bfloat16" in page) is said, (encoding, page[:200])
+
+
 def test_failed_gate_in_plain_words(tmp_path: Path) -> None:
     inp = _inputs(tmp_path, gate_passes=False)
     assert "did NOT pass the release gate" in render_html(inp)

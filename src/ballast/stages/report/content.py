@@ -162,6 +162,15 @@ def split_line(split: str, gate: dict[str, Any] | None) -> str:
 REFERENCES = ("bm25", "base+bm25", "tuned+bm25")
 
 
+def encoding_note(metrics: dict[str, Any]) -> str:
+    """A sentence on the precision the embeddings were computed in (metrics.json "encoding");
+    empty for float32 or when not recorded."""
+    if metrics.get("encoding") != "bfloat16":
+        return ""
+    return (" Embeddings computed in bfloat16 (evaluate.bf16), base and tuned alike: means"
+            " within about 0.003 and gains within 0.0015 of float32 (docs/scale.md).")  # fmt: skip
+
+
 def reference_notes(metrics: dict[str, Any], primary: str) -> list[str]:
     """Where the lexical reference beats the tuned model, said plainly (for jargon and codes a
     retrieval engineer needs to know; never gated)."""

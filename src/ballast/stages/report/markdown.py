@@ -13,6 +13,7 @@ from ballast.stages.report.content import (
     _num,
     _passage_text,
     _primary,
+    encoding_note,
     preflight_lines,
     provenance_lines,
     reference_notes,
@@ -50,7 +51,8 @@ def render_markdown(inp: ReportInputs) -> str:
     if lexical:
         out += ["", "## The lexical reference (never gated)", ""]
         out += [f"- {_md(n)}" for n in lexical]
-    out += ["", "Charts are in report.html beside this file.", "", "## Base and tuned, per split"]
+    out += ["", f"Charts are in report.html beside this file.{_md(encoding_note(metrics))}", "",
+            "## Base and tuned, per split"]  # fmt: skip
     for s, info in metrics.get("splits", {}).items():
         out += [
             "",

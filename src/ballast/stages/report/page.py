@@ -39,6 +39,7 @@ from ballast.stages.report.content import (
     _per_query_values,
     _primary,
     _split_names,
+    encoding_note,
     mean_interval,
     preflight_lines,
     provenance_lines,
@@ -152,7 +153,7 @@ def render_html(inp: ReportInputs) -> str:
         f"<h1>ballast report: {E(inp.name)}</h1>",
         f'<p class="muted">Base model against the tuned model on every evaluation split. '
         f"Intervals are {E(pct)} paired bootstrap intervals; p-values are paired randomization "
-        f"tests. Made by ballast {E(__version__)}.</p>",
+        f"tests.{E(encoding_note(metrics))} Made by ballast {E(__version__)}.</p>",
         "<h2>Verdict</h2>",
     ]
     words = _gate_words(gate)
