@@ -125,19 +125,23 @@ class RosyUnderBf16(Planted):
         return super().encode(texts, **kw)
 
 
+@pytest.mark.parametrize("base_bf16", [False, True])
 @pytest.mark.parametrize(("tuned_w", "kept"), [(0.1, 0.0), (1.0, 1.0)])
 def test_a_close_bf16_win_is_checked_in_float32(
-    monkeypatch: pytest.MonkeyPatch, tuned_w: float, kept: float
+    monkeypatch: pytest.MonkeyPatch, tuned_w: float, kept: float, base_bf16: bool
 ) -> None:
     import ballast.stages.train.mix as mix
 
     monkeypatch.setattr(mix, "CLOSE", 2.0)  # every win counts as close
     base = Planted(0.5)
     net = choose_weight(base, RosyUnderBf16(tuned_w), dev(), (0.0, 1.0),
-                        base_passages=base.encode(TEXTS), bf16=True)  # fmt: skip
+                        base_passages=base.encode(TEXTS), base_bf16=base_bf16,
+                        bf16=True)  # fmt: skip
     assert net["precision"] == "bfloat16" and net["dev_scores"]["1"] == 1.0  # flattered
     check = net["float32_check"]
-    assert list(check) == ["1"] and net["weight"] == kept
+    # a base given in bfloat16 is scored again in float32 for the check (here the same)
+    assert list(check) == (["0", "1"] if base_bf16 else ["1"]) and net["weight"] == kept
+    assert check.get("0", net["dev_scores"]["0"]) == net["dev_scores"]["0"]
     assert (check["1"] > net["dev_scores"]["0"]) == (kept == 1.0)
 
 
@@ -150,3 +154,16 @@ def test_a_close_win_refuted_in_float32_falls_to_the_next_best_not_the_base() ->
     assert best == 0.5 and checked == exact
     assert keep_best(scores, lambda w: 0.0, close=0.005) == (0.0, {0.25: 0.0, 0.5: 0.0})
     assert keep_best(scores, exact.__getitem__, close=0) == (0.25, {})  # float32: no check
+
+
+def test_a_float32_check_scores_a_bfloat16_base_in_float32_too() -> None:
+    # the base scored in bfloat16 (evaluate.bf16) is not what a float32 check compares with:
+    # 0.25 beats the base's bfloat16 score in float32 (0.801 > 0.800) but not its float32 one
+    scores = {0.0: 0.800, 0.25: 0.803, 1.0: 0.790}
+    exact = {0.0: 0.802, 0.25: 0.801}
+    assert keep_best(scores, exact.__getitem__, close=0.005) == (0.25, {0.25: 0.801})
+    assert keep_best(scores, exact.__getitem__, close=0.005, base_exact=False) == (
+        0.0, {0.0: 0.802, 0.25: 0.801})  # fmt: skip
+    # no close call, no float32 base
+    assert keep_best({0.0: 0.8, 1.0: 0.9}, exact.__getitem__, close=0.005, base_exact=False) == (
+        1.0, {})  # fmt: skip

@@ -221,7 +221,7 @@ def _safety_net(
                       f"on {len(dev.query_texts)} dev queries")  # fmt: skip
     net = choose_weight(
         base, tuned, dev, weights, base_passages=base_passages, base_queries=base_queries,
-        descend=descend,
+        base_bf16=run.encode_bf16, descend=descend,
         bf16=use_bf16(run.cfg.train.bf16), progress=run.progress,
     )  # fmt: skip
     if net["weight"] != 1.0:

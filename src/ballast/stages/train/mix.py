@@ -17,7 +17,9 @@ short (docs/scale.md measures both):
   them all. The base (0) costs nothing and is always scored. ``"all"`` scores every weight.
 - ``bf16``: the mixes are encoded under bfloat16 autocast (where training ran in bfloat16; rankings
   within 0.003 nDCG@10 of float32 in docs/training.md). A weight kept by less than ``CLOSE``
-  over the base is scored again in float32 and kept only if it still beats the base there;
+  over the base is scored again in float32 and kept only if it still beats the base there
+  (the base, too, in float32: where the run encodes in bfloat16, ``evaluate.bf16``, its
+  embeddings come from the run's cache in bfloat16 and are encoded again for the check);
   else the next best is tried, then the base.
 """
 
@@ -64,12 +66,18 @@ def search(
 
 
 def keep_best(
-    scores: dict[float, float], exact: Callable[[float], float], *, close: float
+    scores: dict[float, float],
+    exact: Callable[[float], float],
+    *,
+    close: float,
+    base_exact: bool = True,
 ) -> tuple[float, dict[float, float]]:
     """(the weight kept, the float32 scores checked). The best-scoring weight, ties to the
     smaller, the base (0) when nothing beats it; a weight that beats the base by less than
     ``close`` is kept only if ``exact`` (float32) still has it above the base, else the next
-    best is tried. Without a score for 0, nothing is compared to the base."""
+    best is tried. The base's own score is taken as it is when ``base_exact`` (it was computed
+    in float32), else scored by ``exact(0)`` once, at the first check. Without a score for 0,
+    nothing is compared to the base."""
     base = scores.get(0.0, float("-inf"))
     checked: dict[float, float] = {}
     for w in sorted((w for w in scores if w != 0.0), key=lambda w: (-scores[w], w)):
@@ -77,8 +85,10 @@ def keep_best(
             break
         if scores[w] - base >= close:
             return w, checked
+        if not base_exact and 0.0 not in checked:
+            checked[0.0] = exact(0.0)
         checked[w] = exact(w)
-        if checked[w] > base:
+        if checked[w] > checked.get(0.0, base):
             return w, checked
     return 0.0, checked  # reached only when 0 is scored and nothing beats it
 
@@ -91,6 +101,7 @@ def choose_weight(
     *,
     base_passages: np.ndarray,
     base_queries: np.ndarray | None = None,
+    base_bf16: bool = False,
     descend: bool = False,
     bf16: bool = False,
     progress: Progress = SILENT,
@@ -99,7 +110,8 @@ def choose_weight(
     weight scored), ``candidates`` (passages scored), ``search``, ``precision`` and, when a
     close weight was checked in float32, ``float32_check``. ``dev``: a train.full DevSet;
     ``base_passages``: the base model's embeddings of ``dev.passage_texts``, ``base_queries``
-    of ``dev.query_texts`` (none: encoded here, in float32). Ties go to the
+    of ``dev.query_texts`` (none: encoded here, in float32); ``base_bf16``: they were
+    computed in bfloat16, so a float32 check scores the base again in float32. Ties go to the
     smaller weight (closer to the base). ``tuned_model`` ends holding the kept weights."""
     import torch
 
@@ -117,8 +129,12 @@ def choose_weight(
     base_sd = base_model.state_dict()
 
     def score(w: float, half: bool = bf16) -> float:
-        if w == 0.0:
+        if w == 0.0 and (half or not base_bf16):
             q, p = q_base, base_passages[[index[x] for x in keep]]
+        elif w == 0.0:  # the base in float32, for a float32 check
+            q = encode(base_model, dev.query_texts, batch_size=dev.batch_size)
+            p = encode(base_model, texts, batch_size=dev.batch_size, progress=progress,
+                       label="train: dev passages of the base in float32")  # fmt: skip
         else:
             with torch.no_grad():
                 tuned_model.load_state_dict(interpolate(base_sd, tuned_sd, w))
@@ -134,7 +150,8 @@ def choose_weight(
         "search": "descend" if descend else "all",
         "precision": "bfloat16" if bf16 else "float32",
     }
-    best, checked = keep_best(scores, lambda w: score(w, half=False), close=CLOSE if bf16 else 0)
+    best, checked = keep_best(scores, lambda w: score(w, half=False),
+                              close=CLOSE if bf16 else 0, base_exact=not base_bf16)  # fmt: skip
     if checked:
         out["float32_check"] = {f"{w:g}": s for w, s in checked.items()}
     with torch.no_grad():
