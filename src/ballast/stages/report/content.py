@@ -167,8 +167,9 @@ def encoding_note(metrics: dict[str, Any]) -> str:
     empty for float32 or when not recorded."""
     if metrics.get("encoding") != "bfloat16":
         return ""
-    return (" Embeddings computed in bfloat16 (evaluate.bf16), base and tuned alike: means"
-            " within about 0.003 and gains within 0.0015 of float32 (docs/scale.md).")  # fmt: skip
+    return (" Embeddings computed in bfloat16 (evaluate.bf16), base and tuned alike: on splits"
+            " of 300 queries or more, means within 0.003 and gains within 0.0015 of float32;"
+            " small splits move more, about 1/n (docs/scale.md).")  # fmt: skip
 
 
 def reference_notes(metrics: dict[str, Any], primary: str) -> list[str]:
