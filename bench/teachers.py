@@ -1,6 +1,8 @@
 """Training recipes side by side on one collection: teacher labels against the contrastive
-loss (``--recipes teachers``), the quantity and mix of training data (``--recipes quantity``), or
-random batches against batches of similar length (``--recipes batching``).
+loss (``--recipes teachers``), the quantity and mix of training data (``--recipes quantity``),
+random batches against batches of similar length (``--recipes batching``), or the real
+questions about training documents all judging against a share of them training
+(``--recipes questions``).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
 
@@ -43,6 +45,11 @@ QUANTITY = {
 BATCHING = {
     "random batches": ["train.batching=random"],
     "batches of similar length": ["train.batching=length"],
+}
+QUESTIONS = {  # real questions about training documents: all judge, or a share trains
+    "no real question trains": ["split.human_train_fraction=0.0"],
+    "half of them train": ["split.human_train_fraction=0.5"],
+    "all but gate.min_queries train": ["split.human_train_fraction=1.0"],
 }
 LLM = {"query likelihood (Gemma), KL": ["teach.teacher=query-likelihood",
                                          "teach.model=packaged:gemma-3-270m"]}  # fmt: skip
@@ -145,7 +152,7 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
-    ap.add_argument("--recipes", choices=("teachers", "quantity", "batching"),
+    ap.add_argument("--recipes", choices=("teachers", "quantity", "batching", "questions"),
                     default="teachers")  # fmt: skip
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
@@ -153,7 +160,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--only", action="append", default=[], help="run only these recipes")
     args = ap.parse_args(argv)
     cfg = config(args)
-    recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING}[args.recipes]
+    recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING,
+               "questions": QUESTIONS}[args.recipes]  # fmt: skip
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}

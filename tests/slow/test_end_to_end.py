@@ -105,3 +105,25 @@ def test_export_forced_after_failed_gate_is_recorded(two_runs) -> None:
 
     emb = SentenceTransformer(str(bundle), device="cpu", local_files_only=True).encode(["press"])
     assert emb.shape == (1, 384)
+
+
+def test_a_share_of_the_real_questions_trains_as_pairs(two_runs) -> None:
+    """split.human_train_fraction: the chosen questions get mined negatives and train as pairs
+    beside the generated queries; the human split judges with the rest (common practice: a
+    query that trains never judges)."""
+    root, cfg, _ = two_runs[0]
+    proc = ballast("run", str(cfg), "--json", "--set", "split.human_train_fraction=0.5",
+                   cwd=root)  # fmt: skip
+    assert proc.returncode in (0, 1, 3), proc.stderr
+    ran = {s["stage"] for s in json.loads(proc.stdout)["stages"] if not s["skipped"]}
+    assert {"split", "mine", "train", "evaluate"} <= ran
+    run = root / "run"
+    queries = json.loads((run / "splits.json").read_text("utf-8"))["queries"]
+    trained, judging = queries["human_train"], queries["human"]
+    assert trained and len(judging) >= 5 and not set(trained) & set(judging)
+    mined = {json.loads(x)["query_id"] for x in (run / "negatives.jsonl").open(encoding="utf-8")}
+    assert set(trained) <= mined and mined <= set(trained) | set(queries["train"])
+    train = json.loads((run / "train.json").read_text("utf-8"))
+    assert train["pairs"] == len(queries["train"]) + len(trained)
+    metrics = json.loads((run / "metrics.json").read_text("utf-8"))
+    assert metrics["splits"]["human"]["n_queries"] == len(judging)

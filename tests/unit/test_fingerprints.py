@@ -47,7 +47,7 @@ KEY = {
     # train keeps the best dev checkpoint by it; check estimates the detectable gain in it
     "gate.primary_metric": {"check", "teach", "train", "gate", "export"},
     "gate.splits": {"check", "train", "gate", "export"},  # export measures int8 on a gated split
-    "gate.min_queries": {"check", "train", "gate"},  # the pre-flight count check
+    "gate.min_queries": {"split", "check", "train", "gate"},  # human keeps as many; pre-flight
     "gate.alpha": {"check", "gate"},  # the detectable gain is computed at the gate's level
 }
 

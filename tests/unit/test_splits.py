@@ -16,7 +16,13 @@ from hypothesis import strategies as st
 from ballast import InputError
 from ballast.config import SplitConfig
 from ballast.core.records import qrels_for
-from ballast.core.splits import assign_documents, assign_queries, leakage_audit
+from ballast.core.splits import (
+    assign_documents,
+    assign_queries,
+    human_training_share,
+    leakage_audit,
+    training_query_ids,
+)
 from ballast.io.trec import format_qrels
 
 DOCS = [f"doc-{i:03d}" for i in range(40)]
@@ -204,3 +210,58 @@ def test_leakage_audit_limit() -> None:
     out = leakage_audit(passages, DOC_SPLIT, threshold=0.9, limit=2)
     assert out["pairs_found"] == 5 and out["identical"] == 5
     assert [p["held_out"] for p in out["pairs"]] == ["x0", "x1"]
+
+
+# ---------------------------------------------------------------- real questions that train
+
+
+def _human(n: int) -> tuple[list[dict], dict[str, list[str]]]:
+    queries = [{"id": f"h{i:02d}", "passage_id": "p1", "origin": "human"} for i in range(n)]
+    queries.append({"id": "q1", "passage_id": "p1", "origin": "ict"})
+    return queries, assign_queries(queries, PASSAGES, DOC_SPLIT)
+
+
+def test_a_share_of_the_real_questions_trains_and_the_rest_judges() -> None:
+    """Common practice: a query that trains never judges (the share is split off the human
+    split, seeded, and the rest judges)."""
+    queries, split = _human(20)
+    out = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=0.5, keep=5, seed=0)
+    assert len(out["human_train"]) == 10 and len(out["human"]) == 10
+    assert sorted(out["human"] + out["human_train"]) == split["human"]
+    assert not set(out["human"]) & set(out["human_train"])
+    assert out["train"] == ["q1"] and out["human_train"] == sorted(out["human_train"])
+    again = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=0.5, keep=5,
+                                 seed=0)  # fmt: skip
+    other = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=0.5, keep=5,
+                                 seed=1)  # fmt: skip
+    assert again == out and other["human_train"] != out["human_train"]
+    assert training_query_ids({"queries": out}) == ["q1", *out["human_train"]]
+
+
+def test_the_human_split_keeps_gate_min_queries() -> None:
+    queries, split = _human(12)
+    whole = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=1.0, keep=5, seed=0)
+    assert len(whole["human"]) == 5 and len(whole["human_train"]) == 7
+    few = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=1.0, keep=12, seed=0)
+    assert few["human_train"] == [] and few["human"] == split["human"]
+    off = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=0.0, keep=0, seed=0)
+    assert off["human_train"] == [] and off["human"] == split["human"]
+
+
+def test_only_questions_answered_wholly_in_training_documents_train() -> None:
+    """A question also answered in a held-out document stays to judge: training on it would
+    put a held-out document's question into training."""
+    queries, _ = _human(0)
+    queries += [
+        {"id": "h1", "passage_id": "p1", "origin": "human"},
+        {"id": "h2", "passage_id": "p1", "origin": "human", "meta": {"relevant": ["p1", "p2"]}},
+        {"id": "h3", "passage_id": "p1", "origin": "human", "meta": {"relevant": ["p1", "p3"]}},
+    ]
+    split = assign_queries(queries, PASSAGES, DOC_SPLIT)
+    assert split["human"] == ["h1", "h2", "h3"]
+    out = human_training_share(split, queries, PASSAGES, DOC_SPLIT, fraction=1.0, keep=0, seed=0)
+    assert out["human_train"] == ["h1"] and out["human"] == ["h2", "h3"]
+
+
+def test_a_splits_file_from_before_human_train_still_reads() -> None:
+    assert training_query_ids({"queries": {"train": ["a", "b"]}}) == ["a", "b"]

@@ -67,6 +67,8 @@ round_trip_k = 0           # keep a generated query only if the base model ranks
 test_fraction = 0.2        # share of documents held out for the test split
 dev_fraction = 0.1         # share held out for dev (never gated)
 leakage_threshold = 0.9    # word 3-gram Jaccard at which held-out passages count as leaked
+human_train_fraction = 0.0 # share of your questions about training documents that train
+                           # (the "human" split keeps at least gate.min_queries to judge)
 
 [mine]                     # docs/mining.md explains every rule
 negatives = 1              # hard negatives per training pair (0 = in-batch only)

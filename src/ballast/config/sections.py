@@ -14,7 +14,9 @@ from ballast.core.errors import ConfigError
 from ballast.core.metrics import parse_metric
 
 PACKAGED_BASE = "packaged:all-MiniLM-L6-v2"
-EVAL_SPLITS = ("train", "dev", "test", "judge", "human", "human_dev", "human_heldout", "guard")
+EVAL_SPLITS = (
+    "train", "human_train", "dev", "test", "judge", "human", "human_dev", "human_heldout", "guard"
+)  # fmt: skip
 GATE_SPLITS = ("test", "judge", "human", "human_heldout", "guard")
 SUPERIORITY_SPLITS = ("test", "judge", "human")  # must gain; human_heldout and guard must not lose
 
@@ -199,6 +201,9 @@ class SplitConfig:
     test_fraction: float = 0.2
     dev_fraction: float = 0.1
     leakage_threshold: float = 0.9
+    # share of the real questions about training documents that train (as pairs, like the
+    # generated queries) instead of judging; the "human" split always keeps gate.min_queries
+    human_train_fraction: float = 0.0
 
     def __post_init__(self) -> None:
         _range("split.test_fraction", self.test_fraction, 0.0, 0.9, lo_open=True)
@@ -210,6 +215,7 @@ class SplitConfig:
                 "test_fraction + dev_fraction below 1, so some documents remain for training",
             )
         _range("split.leakage_threshold", self.leakage_threshold, 0.0, 1.0, lo_open=True)
+        _range("split.human_train_fraction", self.human_train_fraction, 0.0, 1.0)
 
 
 @dataclass(frozen=True)

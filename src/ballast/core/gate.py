@@ -35,14 +35,15 @@ SPLIT_MEANING = {
     "test": "synthetic queries on held-out documents, from the generators the training used",
     "judge": "synthetic queries on held-out documents, from generators the training never used "
     "(synth.judge_generators)",
-    "human": "real questions about documents the model trained on (never on the questions)",
+    "human_train": "real questions the model trained on (split.human_train_fraction)",
+    "human": "real questions about documents the model trained on (never on these questions)",
     "human_dev": "real questions about dev documents: where settings are chosen",
     "human_heldout": "real questions about documents the model never saw",
     "guard": "your general-domain set: the tuned model must not get worse there",
 }
 
 
-NEVER_GATED = ("train", "dev", "human_dev")
+NEVER_GATED = ("train", "human_train", "dev", "human_dev")
 
 
 def split_explained(split: str, rule: str | None) -> str:

@@ -91,6 +91,47 @@ def assign_queries(
     return {s: sorted(ids) for s, ids in out.items()}
 
 
+def human_training_share(
+    q_split: dict[str, list[str]],
+    queries: list[dict],
+    passages: dict[str, dict],
+    doc_split: dict[str, str],
+    *,
+    fraction: float,
+    keep: int,
+    seed: int,
+) -> dict[str, list[str]]:
+    """Move a seeded share of the ``human`` split into ``human_train``: real questions that train
+    as pairs, like the generated queries, and never judge. Only questions whose every answer
+    passage lies in a training document can train (the positive and the passages kept from the
+    negatives are then training text). ``round(fraction * n)`` of the ``n`` questions in
+    ``human``, but never so many that fewer than ``keep`` (``gate.min_queries``) stay to judge;
+    the choice is by a hash of the seed and each question's id (the same questions for the same
+    seed and file). The others keep their splits."""
+    out = {s: list(ids) for s, ids in q_split.items()}
+    out["human_train"] = []
+    human = out.get("human", [])
+    n = min(round(fraction * len(human)), max(0, len(human) - keep))
+    if n <= 0:
+        return out
+    by_id = {q["id"]: q for q in queries}
+    eligible = [
+        qid for qid in human
+        if all(doc_split[passages[r]["doc_id"]] == "train" for r in relevant_ids(by_id[qid]))
+    ]  # fmt: skip
+    chosen = set(sorted(eligible, key=lambda q: _rank_key(seed, q))[:n])
+    out["human"] = [q for q in human if q not in chosen]
+    out["human_train"] = sorted(chosen)
+    return out
+
+
+def training_query_ids(splits: dict[str, Any]) -> list[str]:
+    """The queries that train: the training documents' generated queries and the real questions
+    of ``human_train`` (splits.json from before that split has none)."""
+    q = splits["queries"]
+    return [*q.get("train", []), *q.get("human_train", [])]
+
+
 _SPLIT_CODE = {s: i for i, s in enumerate(DOC_SPLITS)}
 
 

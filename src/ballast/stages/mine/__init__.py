@@ -14,6 +14,7 @@ import numpy as np
 
 from ballast.core.errors import StageError
 from ballast.core.records import relevant_ids, training_positive
+from ballast.core.splits import training_query_ids
 from ballast.io.files import write_jsonl, write_text_atomic
 from ballast.stages.base import Run, Stage, file_fingerprint
 
@@ -46,7 +47,7 @@ def mine(run: Run) -> dict[str, Any]:
 
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     train_docs = set(splits["documents"]["train"])
-    train_q = set(splits["queries"]["train"])
+    train_q = set(training_query_ids(splits))
     by_pid = {p["id"]: p for p in passages}
     qs = [q for q in queries if q["id"] in train_q]
     cfg = run.cfg.mine

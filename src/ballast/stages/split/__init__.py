@@ -31,7 +31,12 @@ def split(run: Run) -> dict[str, Any]:
     import json
 
     from ballast.core.records import qrels_for
-    from ballast.core.splits import assign_documents, assign_queries, leakage_audit
+    from ballast.core.splits import (
+        assign_documents,
+        assign_queries,
+        human_training_share,
+        leakage_audit,
+    )
     from ballast.io.trec import format_qrels
 
     # passages.jsonl is streamed twice (doc ids now, texts for the audit), never held whole
@@ -65,6 +70,11 @@ def split(run: Run) -> dict[str, Any]:
             )
     by_pid = _DocOf(doc_of)
     q_split = assign_queries(queries, by_pid, doc_split, set(run.cfg.synth.judge_generators))
+    q_split = human_training_share(
+        q_split, queries, by_pid, doc_split,
+        fraction=run.cfg.split.human_train_fraction, keep=run.cfg.gate.min_queries,
+        seed=run.cfg.seed,
+    )  # fmt: skip
     del by_pid, doc_of
     audit = leakage_audit(
         (p for _, p in read_jsonl(passages_path)), doc_split, run.cfg.split.leakage_threshold
@@ -97,7 +107,7 @@ def split(run: Run) -> dict[str, Any]:
 STAGE = Stage(
     "split",
     split,
-    keys=("split", "seed", "synth.judge_generators"),
+    keys=("split", "seed", "synth.judge_generators", "gate.min_queries"),
     inputs=("passages.jsonl", "queries.jsonl"),
     outputs=("splits.json", "qrels"),
 )

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from ballast.core.errors import StageError
+from ballast.core.splits import training_query_ids
 from ballast.io.files import write_json, write_jsonl
 from ballast.stages.base import Run, Stage, file_fingerprint
 
@@ -141,7 +142,7 @@ def teach(run: Run) -> dict[str, Any]:
     train_docs = set(splits["documents"]["train"])
     tidx = [i for i, p in enumerate(passages) if p["doc_id"] in train_docs]
     local = {ids[i]: j for j, i in enumerate(tidx)}
-    qs = [by_qid[q] for q in splits["queries"]["train"] if by_qid[q]["passage_id"] in local]
+    qs = [by_qid[q] for q in training_query_ids(splits) if by_qid[q]["passage_id"] in local]
     if not qs:
         raise StageError("teach: no training queries to label")
     q_emb = enc([q["text"] for q in qs], "encoding training queries (base)")

@@ -10,6 +10,7 @@ from ballast import __version__
 from ballast.config.record import section_dict
 from ballast.core.errors import StageError
 from ballast.core.records import training_positive
+from ballast.core.splits import training_query_ids
 from ballast.io.files import atomic_dir, read_jsonl, write_json
 from ballast.stages.base import Run, Stage, without_timings
 
@@ -64,7 +65,8 @@ def train(run: Run) -> dict[str, Any]:
     rng = run.rng("train")
     want = run.cfg.mine.negatives
     examples, indexed, padded = [], [], 0
-    for qid in splits["queries"]["train"]:
+    trained = training_query_ids(splits)
+    for qid in trained:
         q = by_qid[qid]
         pos = by_pid[q["passage_id"]]
         neg = [by_pid[n["id"]]["text"] for n in negs.get(qid, {}).get("negatives", [])]
@@ -77,7 +79,7 @@ def train(run: Run) -> dict[str, Any]:
             {"anchor": q["text"], "positive": training_positive(q, pos), "negatives": neg}
         )
         indexed.append(pos["text"])
-    taught = _teacher_labels(run, examples, splits["queries"]["train"], by_pid)
+    taught = _teacher_labels(run, examples, trained, by_pid)
     if len(examples) < 2:
         raise StageError(
             f"{len(examples)} training pair(s); need at least 2 — add documents "
