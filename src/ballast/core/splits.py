@@ -107,7 +107,10 @@ def human_training_share(
     negatives are then training text). ``round(fraction * n)`` of the ``n`` questions in
     ``human``, but never so many that fewer than ``keep`` (``gate.min_queries``) stay to judge;
     the choice is by a hash of the seed and each question's id (the same questions for the same
-    seed and file). The others keep their splits."""
+    seed and file). The others keep their splits. With ``fraction`` 0 nothing changes (no
+    ``human_train`` key: splits.json stays as it was before this option)."""
+    if fraction <= 0:
+        return q_split
     out = {s: list(ids) for s, ids in q_split.items()}
     out["human_train"] = []
     human = out.get("human", [])
