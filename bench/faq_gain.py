@@ -69,6 +69,22 @@ def subsample(faq: Path, out: Path, fraction: float, seed: int) -> tuple[Path, P
     return out / "docs", out / "questions.jsonl"
 
 
+def one_source(faq: Path, out: Path, name: str) -> tuple[Path, Path]:
+    """The documents and questions of one FAQ of the pool (ids ``NAME:...``), on their own."""
+    docs = [json.loads(x) for x in (faq / "docs" / "faq.jsonl").read_text("utf-8").splitlines()]
+    qs = [json.loads(x) for x in (faq / "questions.jsonl").read_text("utf-8").splitlines()]
+    docs = [d for d in docs if d["id"].split(":", 1)[0] == name]
+    if not docs:
+        raise SystemExit(f"no FAQ named {name!r} in {faq} (see its sources.json)")
+    kept = {d["id"] for d in docs}
+    (out / "docs").mkdir(parents=True, exist_ok=True)
+    (out / "docs" / "faq.jsonl").write_text("".join(json.dumps(d) + "\n" for d in docs), "utf-8")
+    (out / "questions.jsonl").write_text(
+        "".join(json.dumps(q) + "\n" for q in qs if q["doc_id"] in kept), "utf-8"
+    )
+    return out / "docs", out / "questions.jsonl"
+
+
 def run(out: Path, cache: Path, overrides: list[str], seed: int = 0, fraction: float = 1.0) -> dict:
     from ballast.config import load_config
 

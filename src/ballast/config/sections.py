@@ -95,6 +95,9 @@ class SynthConfig:
     # model-written queries: "llm" (a local model) and "http" (a chat-completions endpoint)
     prompts: str = ""
     styles: tuple[str, ...] = ("question", "keywords", "troubleshooting")
+    # real questions (from `questions`) that become the worked examples of the "question"
+    # style's prompt, replacing the template's; they are set aside and never judge (0 = off)
+    question_examples: int = 0
     llm_per_passage: int = 1
     llm_model: str = "packaged:gemma-3-270m"
     llm_batch_size: int = 4
@@ -166,6 +169,15 @@ def _check_model_synth(c: SynthConfig) -> None:
     _range("synth.max_words", c.max_words, c.min_words, 1000)
     _range("synth.copy_overlap", c.copy_overlap, 0.0, 1.0, lo_open=True)
     _range("synth.round_trip_k", c.round_trip_k, 0, 10_000)
+    _range("synth.question_examples", c.question_examples, 0, 64)
+    if c.question_examples:
+        key, n = "synth.question_examples", c.question_examples
+        if not c.questions:
+            _fail(key, n, "0 without synth.questions (the examples are real questions)")
+        if not any(g in ("llm", "http") for g in c.all_generators):
+            _fail(key, n, "0 unless 'llm' or 'http' writes queries (they are prompt examples)")
+        if "question" not in c.styles:
+            _fail(key, n, "0 unless synth.styles has 'question', whose examples they replace")
     # Neither message below repeats the value: it may be a secret put in the wrong place.
     env_name = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,63}")
     looks_like_a_key = (

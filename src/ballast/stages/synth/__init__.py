@@ -12,14 +12,20 @@ def synth(run: Run) -> dict[str, Any]:
     from ballast.stages.synth.dispatch import synthesize
     from ballast.stages.synth.extractive import budget
     from ballast.stages.synth.filters import MODEL_ORIGINS, RULES, counts, rule_filter
-    from ballast.stages.synth.human import import_questions
+    from ballast.stages.synth.human import import_questions, set_aside_examples
 
     cfg = run.cfg.synth
     passages = run.passages()
     chosen = budget(passages, cfg.max_passages, run.cfg.seed)
+    # The questions are read first: a mistake in their file stops the stage before any model
+    # writes; those shown to the query writer as examples are set aside (they never judge).
+    human = import_questions(cfg.questions, passages) if cfg.questions else []
+    human, examples = set_aside_examples(human, passages, cfg.question_examples, run.cfg.seed)
+    examples_path = run.path("synth.examples.jsonl")
     queries, stats = synthesize(
-        chosen, cfg, run.rng("synth"), cache_dir=run.path("cache", "synth"), progress=run.progress
-    )
+        chosen, cfg, run.rng("synth"), cache_dir=run.path("cache", "synth"),
+        progress=run.progress, examples=examples,
+    )  # fmt: skip
     if cfg.max_passages:
         stats["passages"] = {"chosen": len(chosen), "of": len(passages)}
     # Filters judge generated queries only: human questions are added after them.
@@ -41,9 +47,13 @@ def synth(run: Run) -> dict[str, Any]:
     else:
         removed_path.unlink(missing_ok=True)
     if cfg.questions:
-        human = import_questions(run.cfg.synth.questions, passages)
         stats["human"] = len(human)
         queries.extend(human)
+    if examples:
+        stats["question_examples"] = len(examples)
+        write_jsonl(examples_path, examples)
+    else:
+        examples_path.unlink(missing_ok=True)
     write_jsonl(run.path("queries.jsonl"), queries)
     stats["total"] = len(queries)
     return stats

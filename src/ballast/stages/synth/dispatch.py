@@ -20,10 +20,12 @@ def synthesize(
     *,
     cache_dir: str | Path | None = None,
     progress: Progress = SILENT,
+    examples: list[dict] | None = None,
 ) -> tuple[list[dict], dict[str, Any]]:
     """Run each configured generator in turn (the training's, then the judges'), with one
     seeded generator each. The model-written ones ("llm", "http") keep what they write in
-    ``cache_dir``."""
+    ``cache_dir``; ``examples`` (real questions with their passages, ``human.set_aside_examples``)
+    replace the worked examples of their "question" prompt."""
     queries: list[dict] = []
     stats: dict[str, Any] = {}
     seeds = rng.integers(0, 2**63 - 1, size=len(cfg.generators))
@@ -37,7 +39,9 @@ def synthesize(
             from ballast.stages.synth.generate import model_queries
 
             backend = MODEL_GENERATORS[name](cfg, progress)
-            made = model_queries(backend, passages, cfg, sub, cache_dir, progress)
+            made = model_queries(
+                backend, passages, cfg, sub, cache_dir, progress, examples=examples
+            )
         else:
             made = GENERATORS[name](passages, cfg, sub)
         stats[name] = len(made)

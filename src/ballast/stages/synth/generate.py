@@ -105,13 +105,22 @@ def model_queries(
     rng: np.random.Generator,
     cache_dir: str | Path,
     progress: Progress = SILENT,
+    examples: list[dict] | None = None,
 ) -> list[dict]:
-    """Queries from ``backend`` for every passage; cached generations are reused."""
+    """Queries from ``backend`` for every passage; cached generations are reused. ``examples``
+    (``{"text", "passage"}``) replace the worked examples of the "question" style's prompt (its
+    hash, and so the cache key of what it writes, changes with them)."""
+    import dataclasses
+
     from ballast.stages.synth.extractive import query_id
+    from ballast.stages.synth.prompts import Example
 
     if cfg.llm_per_passage == 0 or not passages:
         return []
     templates = load_templates(cfg.prompts, cfg.styles)
+    if examples and "question" in templates:
+        shown = tuple(Example(e["passage"], e["text"]) for e in examples)
+        templates["question"] = dataclasses.replace(templates["question"], examples=shown)
     base_seed = int(rng.integers(0, 2**63 - 1))
     settings = {**backend.settings(), "seed": base_seed}
     identity = generator_identity(settings)

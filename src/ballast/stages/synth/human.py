@@ -11,7 +11,7 @@ import difflib
 from pathlib import Path
 
 from ballast.core.errors import InputError
-from ballast.core.text import collapse
+from ballast.core.text import collapse, sha256_bytes
 from ballast.io.files import read_jsonl, require_str
 
 
@@ -75,6 +75,28 @@ def import_questions(path: str | Path, passages: list[dict]) -> list[dict]:
             }
         )
     return out
+
+
+def set_aside_examples(
+    human: list[dict], passages: list[dict], n: int, seed: int
+) -> tuple[list[dict], list[dict]]:
+    """(the questions that stay, the ``n`` set aside as prompt examples): a seeded choice, the
+    ``n`` first by a hash of seed and question id (not by the file's order). An example is the
+    question with the text of its first answer passage; the model-written queries then read
+    like this collection's real questions (Promptagator, Dai et al., ICLR 2023, prompted with
+    about 8 real examples per collection). The examples never judge: a question shown to the
+    query writer is no longer an independent test."""
+    if n <= 0 or not human:
+        return human, []
+    text = {p["id"]: p["text"] for p in passages}
+    rank = sorted(human, key=lambda q: sha256_bytes(f"{seed}\0{q['id']}".encode()))
+    chosen = {q["id"] for q in rank[:n]}
+    examples = [
+        {"id": q["id"], "text": q["text"], "passage_id": q["passage_id"],
+         "passage": text[q["passage_id"]]}
+        for q in rank[:n]
+    ]  # fmt: skip
+    return [q for q in human if q["id"] not in chosen], examples
 
 
 def locate(quote: str, passages: list[dict]) -> list[str]:
