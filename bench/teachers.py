@@ -2,8 +2,9 @@
 loss (``--recipes teachers``), the quantity and mix of training data (``--recipes quantity``),
 random batches against batches of similar length (``--recipes batching``), the real
 questions about training documents all judging against a share of them training
-(``--recipes questions``), or the packaged query writer prompted with the bundled worked
-examples against real questions as its examples (``--recipes examples``; slow).
+(``--recipes questions``), the packaged query writer prompted with the bundled worked
+examples against real questions as its examples (``--recipes examples``; slow), or the lowest
+transformer layers frozen (``--recipes frozen``).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
     python -m bench.teachers OUT --faq --source perl   # one FAQ of the pool on its own
@@ -54,6 +55,11 @@ QUESTIONS = {  # real questions about training documents: all judge, or a share 
     "no real question trains": ["split.human_train_fraction=0.0"],
     "half of them train": ["split.human_train_fraction=0.5"],
     "all but gate.min_queries train": ["split.human_train_fraction=1.0"],
+}
+FROZEN = {  # the embeddings and the lowest N transformer layers keep the base weights
+    "nothing frozen": ["train.frozen_layers=0"],
+    "2 lowest layers frozen": ["train.frozen_layers=2"],
+    "3 lowest layers frozen": ["train.frozen_layers=3"],
 }
 WRITER = ['synth.generators=["llm"]', 'synth.styles=["question"]']
 EXAMPLES = {  # the packaged language model writes every training query, one style
@@ -164,7 +170,7 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
-    sets = ("teachers", "quantity", "batching", "questions", "examples")
+    sets = ("teachers", "quantity", "batching", "questions", "examples", "frozen")
     ap.add_argument("--recipes", default="teachers", choices=sets)
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
@@ -174,7 +180,8 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
     cfg = config(args)
     recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING,
-               "questions": QUESTIONS, "examples": EXAMPLES}[args.recipes]  # fmt: skip
+               "questions": QUESTIONS, "examples": EXAMPLES,
+               "frozen": FROZEN}[args.recipes]  # fmt: skip
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}
@@ -203,7 +210,7 @@ def paired(a: Path, b: Path) -> str:
     from bench.faq_gain import tuned_scores
 
     lines = [f"{b.name} vs {a.name}, tuned against tuned, on the questions both judged:"]
-    for split in ("human_dev", "human", "human_heldout"):
+    for split in ("dev", "human_dev", "human", "human_heldout"):
         sa, sb = tuned_scores(a, split), tuned_scores(b, split)
         qids = sorted(set(sa) & set(sb))
         if not qids:

@@ -211,3 +211,45 @@ def test_multi_process_encoding_matches_one_process() -> None:
     np.testing.assert_allclose(two, one, atol=1e-5)
     with device_pool(model, ["cpu"]) as pool:
         assert pool is None  # one device: this process
+
+
+def test_frozen_layers_keep_the_base_weights(tmp_path: Path) -> None:
+    """train.frozen_layers = 2: the embeddings and layers 0-1 of the saved model are the base
+    model's, bit for bit; the layers above them trained (partial fine-tuning as in Lee et al.
+    2019, "What would Elsa do? Freezing layers during transformer fine-tuning")."""
+    from safetensors.numpy import load_file
+
+    from tests.runfolder import base_model_dir
+
+    cfg = project(tmp_path, "frozen_layers = 2\nmix_weights = []\nlearning_rate = 1e-4")
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    run = cfg.parent / "run"
+    stats = json.loads((run / "train.json").read_text("utf-8"))
+    assert stats["frozen_layers"] == 2 and stats["steps"] > 0
+    base = load_file(str(base_model_dir() / "model.safetensors"))
+    tuned = load_file(str(run / "model" / "model.safetensors"))
+    assert set(tuned) <= set(base)  # the base file also holds a pooler the encoder never uses
+    frozen = [k for k in tuned if k.startswith(("embeddings.", "encoder.layer.0.",
+                                                 "encoder.layer.1."))]  # fmt: skip
+    above = [k for k in tuned if k.startswith("encoder.layer.") and k not in frozen]
+    assert frozen and above
+    assert all(np.array_equal(base[k], tuned[k]) for k in frozen)
+    assert stats["trained_weights"] == sum(tuned[k].size for k in tuned if k not in frozen)
+    changed = [k for k in above if not np.array_equal(base[k], tuned[k])]
+    assert len(changed) > len(above) // 2
+
+
+def test_frozen_layers_refusals() -> None:
+    from ballast.config import build_config
+    from ballast.core.errors import ConfigError, StageError
+    from ballast.models.loading import load_encoder
+    from ballast.stages.train.full import freeze_lower_layers
+    from tests.runfolder import base_model_dir
+
+    model = load_encoder(base_model_dir(), max_seq_length=64)
+    with pytest.raises(StageError, match="at most 5"):
+        freeze_lower_layers(model, 6)
+    with pytest.raises(ConfigError) as info:
+        build_config({"train": {"frozen_layers": 2, "mode": "lora"}})
+    assert info.value.key == "train.frozen_layers"

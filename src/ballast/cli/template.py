@@ -151,6 +151,8 @@ batching = "random"        # or "length": batches of similar length, fewer pad t
 minutes = 0                # a budget: a warm-up times a step here and the training examples
                            # are capped (seeded choice) so training fits; 0 = no budget
 max_pairs = 0              # cap the training examples at this number (seeded); 0 = all
+frozen_layers = 0          # keep the embeddings and the lowest N layers at the base weights
+                           # (faster steps: the backward pass stops above them)
 
 [evaluate]
 splits = []               # [] = every split there is: dev, test; with synth.questions also

@@ -367,9 +367,15 @@ class TrainConfig:
     # choice either way; 0 = no cap)
     minutes: float = 0.0
     max_pairs: int = 0
+    # the token embeddings and the lowest N transformer layers keep the base weights: the
+    # backward pass stops above them (stages/train/full.py; docs/training.md, "Frozen layers")
+    frozen_layers: int = 0
 
     def __post_init__(self) -> None:
         _range("train.minutes", self.minutes, 0.0, 100_000.0)
+        _range("train.frozen_layers", self.frozen_layers, 0, 1000)
+        if self.frozen_layers and self.mode != "full":
+            _fail("train.frozen_layers", self.frozen_layers, "0 unless train.mode is 'full'")
         _range("train.max_pairs", self.max_pairs, 0, 10**9)
         if self.batching not in ("random", "length"):
             _fail("train.batching", self.batching, "'random' or 'length'")

@@ -48,6 +48,51 @@ def _callback(progress: Progress, history: list[dict]) -> Any:
     return Report()
 
 
+# Where transformers keeps the stack of layers and the embeddings, by architecture family:
+# BERT, RoBERTa, XLM-R, MPNet, E5, BGE (encoder.layer); DistilBERT (transformer.layer);
+# ModernBERT and decoder-style models (layers / embed_tokens).
+_LAYER_STACKS = ("encoder.layer", "transformer.layer", "encoder.layers", "layers")
+_EMBEDDINGS = ("embeddings", "embed_tokens")
+
+
+def _attribute(obj: Any, dotted: str) -> Any:
+    for part in dotted.split("."):
+        obj = getattr(obj, part, None)
+        if obj is None:
+            return None
+    return obj
+
+
+def freeze_lower_layers(model: Any, n: int) -> int:
+    """Keep the token embeddings and the lowest ``n`` transformer layers at their base weights
+    (``requires_grad`` off), so the backward pass stops above them and the optimizer skips
+    them; returns the number of weights that still train. The lower layers of a pretrained
+    transformer carry the most general features and change least in fine-tuning (Lee et al.,
+    "What would Elsa do? Freezing layers during transformer fine-tuning", 2019)."""
+    from ballast.core.errors import StageError
+
+    inner = getattr(model[0], "auto_model", None)
+    layers = next((x for x in (_attribute(inner, d) for d in _LAYER_STACKS) if x is not None),
+                  None)  # fmt: skip
+    embeddings = next(
+        (x for x in (_attribute(inner, d) for d in _EMBEDDINGS) if x is not None), None
+    )
+    if layers is None or embeddings is None:
+        raise StageError(
+            f"train.frozen_layers: no stack of transformer layers found in "
+            f"{type(inner).__name__}; set train.frozen_layers = 0 for this model"
+        )
+    if n >= len(layers):
+        raise StageError(
+            f"train.frozen_layers = {n}, but the model has {len(layers)} layers: nothing "
+            f"would train; at most {len(layers) - 1}"
+        )
+    for module in [embeddings, *list(layers)[:n]]:
+        for p in module.parameters():
+            p.requires_grad_(False)
+    return sum(p.numel() for p in model.parameters() if p.requires_grad)
+
+
 LORA_TARGETS = ["query", "value"]  # BERT's attention projections, as in Hu et al. 2021
 
 
@@ -301,6 +346,7 @@ def train_model(
     # A non-empty widget list stops the trainer drawing model-card examples, which would
     # use the global `random` state and draw a progress bar; ballast writes no model card.
     model.model_card_data.widget = [{"text": ""}]
+    trainable = freeze_lower_layers(model, cfg.frozen_layers) if cfg.frozen_layers else None
     if cfg.mode == "lora":
         _add_lora(model, cfg)
     others = "candidates" if teach is not None else "negatives"
@@ -426,4 +472,6 @@ def train_model(
         "bf16_native": cpu_bf16_native() if bf16 else None,
         "batching": cfg.batching,
         "pad_share": padding,
+        **({"frozen_layers": cfg.frozen_layers, "trained_weights": trainable}
+           if cfg.frozen_layers else {}),  # fmt: skip
     } | dev_info
