@@ -80,7 +80,8 @@ def freeze_lower_layers(model: Any, n: int) -> int:
     if layers is None or embeddings is None:
         raise StageError(
             f"train.frozen_layers: no stack of transformer layers found in "
-            f"{type(inner).__name__}; set train.frozen_layers = 0 for this model"
+            f"{type(inner if inner is not None else model[0]).__name__}; set "
+            "train.frozen_layers = 0 for this model"
         )
     if n >= len(layers):
         raise StageError(
