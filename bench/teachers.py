@@ -209,10 +209,16 @@ def paired(a: Path, b: Path) -> str:
     from ballast.core.stats import compare
     from bench.faq_gain import tuned_scores
 
+    def texts(run: Path) -> dict[str, str]:
+        rows = (run / "queries.jsonl").read_text("utf-8").splitlines()
+        return {q["id"]: q["text"] for q in map(json.loads, rows)}
+
+    ta, tb = texts(a), texts(b)
     lines = [f"{b.name} vs {a.name}, tuned against tuned, on the questions both judged:"]
     for split in ("dev", "human_dev", "human", "human_heldout"):
         sa, sb = tuned_scores(a, split), tuned_scores(b, split)
-        qids = sorted(set(sa) & set(sb))
+        # the same query: the same id and the same words (a writer's queries differ by run)
+        qids = sorted(q for q in set(sa) & set(sb) if ta.get(q) == tb.get(q))
         if not qids:
             continue
         c = compare(np.array([sa[q] for q in qids]), np.array([sb[q] for q in qids]),
