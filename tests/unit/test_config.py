@@ -138,6 +138,17 @@ def test_unknown_top_level_key_and_section() -> None:
         ({"train": {"bf16": 1}}, "train.bf16", 'true, false or "auto"'),
         ({"train": {"bf16": "yes"}}, "train.bf16", 'true, false or "auto"'),
         ({"evaluate": {"encode_devices": ["gpu0"]}}, "evaluate.encode_devices", "'cuda:0'"),
+        ({"evaluate": {"backend": "int8"}}, "evaluate.backend", "pytorch, onnx, onnx-int8"),
+        (
+            {"evaluate": {"backend": "onnx-int8", "bf16": True}},
+            "evaluate.bf16",
+            "applies to PyTorch only",
+        ),
+        (
+            {"evaluate": {"backend": "onnx", "encode_devices": ["cpu", "cpu"]}},
+            "evaluate.encode_devices",
+            "one device or none",
+        ),
     ],
 )
 def test_bad_value_names_key_and_allowed(data: dict, key: str, allowed: str) -> None:

@@ -60,8 +60,8 @@ def test_bfloat16_is_close_to_float32_and_cached_apart(model, tmp_path) -> None:
     cache = EmbeddingCache(tmp_path)
     got = encode_cached(model, "fp", TEXTS, cache, batch_size=4, bf16=True)
     np.testing.assert_array_equal(got, b16)
-    assert cache.get("fp", TEXTS, 128, bf16=False) is None  # a float32 request misses
-    np.testing.assert_array_equal(cache.get("fp", TEXTS, 128, bf16=True), b16)
+    assert cache.get("fp", TEXTS, 128) is None  # a float32 request misses
+    np.testing.assert_array_equal(cache.get("fp", TEXTS, 128, "bfloat16"), b16)
 
 
 def test_no_texts_gives_an_empty_matrix_of_the_model_width(model) -> None:  # noqa: ANN001

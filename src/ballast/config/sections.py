@@ -456,6 +456,12 @@ class EvaluateConfig:
     # (on where bfloat16 is native, as train.bf16). Rankings within a measured tolerance of
     # float32 (docs/scale.md); base and tuned are always encoded alike. false = float32.
     bf16: bool | str = "auto"
+    # What the stages encode with for search (synth's round trip, check, mine, teach, judge,
+    # evaluate): "pytorch" (the reference), "onnx" (the model exported to an ONNX graph, run
+    # by onnxruntime) or "onnx-int8" (that graph with int8 weights: faster on CPUs without
+    # bfloat16, rankings within a measured tolerance, docs/scale.md). Each model is exported
+    # once into the run's cache. Training, the safety net and the adapter use PyTorch always.
+    backend: str = "pytorch"
     # lexical reference rows, never gated: "bm25" (BM25 over the same passages) and "hybrid"
     # (each model fused with BM25 by reciprocal rank fusion, NAME+bm25)
     references: tuple[str, ...] = ("bm25", "hybrid")
@@ -477,6 +483,14 @@ class EvaluateConfig:
         _range("evaluate.batch_size", self.batch_size, 1, 4096)
         import re
 
+        if self.backend not in ("pytorch", "onnx", "onnx-int8"):
+            _fail("evaluate.backend", self.backend, "one of pytorch, onnx, onnx-int8")
+        if self.backend != "pytorch" and self.bf16 is True:
+            _fail("evaluate.bf16", self.bf16, f'false or "auto" with evaluate.backend = '
+                  f'"{self.backend}" (bfloat16 autocast applies to PyTorch only)')
+        if self.backend != "pytorch" and len(self.encode_devices) > 1:
+            _fail("evaluate.encode_devices", list(self.encode_devices),
+                  f'one device or none with evaluate.backend = "{self.backend}"')
         for d in self.encode_devices:
             if not re.fullmatch(r"(cpu|cuda|npu|mps|xpu)(:\d+)?", d):
                 _fail("evaluate.encode_devices", d, "devices like 'cpu', 'cuda:0', 'cuda:1'")

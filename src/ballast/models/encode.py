@@ -75,21 +75,22 @@ def encode(
 
 class EmbeddingCache:
     """Embeddings stored as ``<dir>/<model fp>/<hash of the texts>.npy``; writes are atomic.
-    The hash covers the token limit and, for bfloat16 encodings, the precision (float32
-    entries keep the key they had before bfloat16 existed)."""
+    The hash covers the token limit and, for any precision but PyTorch float32 ("bfloat16",
+    "onnx-float32", "onnx-int8"), the precision (float32 entries keep the key they had before
+    the others existed)."""
 
     def __init__(self, root: str | Path) -> None:
         self.root = Path(root)
 
-    def _path(self, model_fp: str, texts: list[str], max_seq_length: int, bf16: bool) -> Path:
-        head = [str(max_seq_length), "bfloat16"] if bf16 else [str(max_seq_length)]
+    def _path(self, model_fp: str, texts: list[str], max_seq_length: int, precision: str) -> Path:
+        head = [str(max_seq_length)] + ([] if precision == "float32" else [precision])
         h = sha256_bytes("\0".join([*head, *texts]).encode("utf-8"))
         return self.root / model_fp[:24] / f"{h[:32]}.npy"
 
     def get(
-        self, model_fp: str, texts: list[str], max_seq_length: int, bf16: bool = False
+        self, model_fp: str, texts: list[str], max_seq_length: int, precision: str = "float32"
     ) -> np.ndarray | None:
-        path = self._path(model_fp, texts, max_seq_length, bf16)
+        path = self._path(model_fp, texts, max_seq_length, precision)
         if not path.is_file():
             return None
         try:
@@ -100,10 +101,25 @@ class EmbeddingCache:
 
     def put(
         self, model_fp: str, texts: list[str], max_seq_length: int, emb: np.ndarray,
-        bf16: bool = False,
+        precision: str = "float32",
     ) -> None:  # fmt: skip
-        with atomic_file(self._path(model_fp, texts, max_seq_length, bf16)) as fh:
+        with atomic_file(self._path(model_fp, texts, max_seq_length, precision)) as fh:
             np.save(fh, emb, allow_pickle=False)
+
+
+def encoding_name(backend: str, bf16: bool) -> str:
+    """What ``evaluate.backend`` and the resolved ``evaluate.bf16`` encode in, as metrics.json's
+    ``"encoding"`` and the cache say it: "float32", "bfloat16", "onnx-float32", "onnx-int8"."""
+    if backend == "pytorch":
+        return "bfloat16" if bf16 else "float32"
+    return "onnx-int8" if backend == "onnx-int8" else "onnx-float32"
+
+
+def precision_of(model: Any, bf16: bool) -> str:
+    """What an encoding with ``model`` is cached and reported as: an ONNX search encoder says
+    its own ("onnx-float32", "onnx-int8"; bfloat16 autocast does not touch it), a PyTorch model
+    "bfloat16" under ``bf16`` autocast, else "float32"."""
+    return str(getattr(model, "search_precision", None) or ("bfloat16" if bf16 else "float32"))
 
 
 def encode_cached(
@@ -118,11 +134,12 @@ def encode_cached(
     pool: Any = None,
     bf16: bool = False,
 ) -> np.ndarray:
-    """``encode`` through ``cache`` (none: encode every time); bfloat16 and float32
-    encodings are cached apart."""
+    """``encode`` through ``cache`` (none: encode every time); each precision
+    (``precision_of``) is cached apart."""
     msl = int(getattr(model, "max_seq_length", 0) or 0)
+    precision = precision_of(model, bf16)
     if cache is not None:
-        hit = cache.get(model_fp, texts, msl, bf16)
+        hit = cache.get(model_fp, texts, msl, precision)
         if hit is not None:
             progress.info(f"{label}: {len(texts)} embeddings from cache")
             return hit
@@ -130,5 +147,5 @@ def encode_cached(
         model, texts, batch_size=batch_size, label=label, progress=progress, pool=pool, bf16=bf16
     )
     if cache is not None:
-        cache.put(model_fp, texts, msl, emb, bf16)
+        cache.put(model_fp, texts, msl, emb, precision)
     return emb

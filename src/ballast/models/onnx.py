@@ -225,9 +225,14 @@ def quantize_int8(src: Path, out: Path) -> dict[str, Any]:
 
 
 class OnnxEncoder:
-    """Embeddings from an exported graph with onnxruntime on the CPU."""
+    """Embeddings from an exported graph with onnxruntime on the CPU (its default thread pool:
+    one thread per physical core). ``encode`` also takes sentence-transformers' keyword
+    arguments, so ``models.encode`` can drive it like a PyTorch model; ``search_precision``
+    names the backend for the embedding cache and the records ("onnx-float32", "onnx-int8")."""
 
-    def __init__(self, path: Path, tokenizer: Any, max_seq_length: int) -> None:
+    def __init__(
+        self, path: Path, tokenizer: Any, max_seq_length: int, precision: str = "onnx-float32"
+    ) -> None:
         require_onnx()
         import onnxruntime as ort
 
@@ -247,6 +252,10 @@ class OnnxEncoder:
         self.tokenizer = tokenizer
         self.max_seq_length = int(max_seq_length)
         self.dimension = int(self.session.get_outputs()[0].shape[-1])
+        self.search_precision = precision
+
+    def get_embedding_dimension(self) -> int:
+        return self.dimension
 
     def encode(
         self,
@@ -255,7 +264,11 @@ class OnnxEncoder:
         batch_size: int = 64,
         label: str = "encoding (onnx)",
         progress: Progress = SILENT,
+        normalize_embeddings: bool = True,
+        **_sentence_transformers_options: Any,
     ) -> np.ndarray:
+        if not normalize_embeddings:
+            raise ValueError("the ONNX graph normalises its embeddings; it cannot leave them raw")
         out = []
         for start in range(0, len(texts), batch_size):
             feed = _tokenize(
@@ -273,3 +286,43 @@ def open_onnx(bundle: Path, file: str, max_seq_length: int) -> OnnxEncoder:
     from ballast.models.loading import load_tokenizer
 
     return OnnxEncoder(bundle / file, load_tokenizer(bundle), max_seq_length)
+
+
+
+def search_encoder(
+    model_dir: Path,
+    model_fp: str,
+    backend: str,
+    cache_root: Path,
+    max_seq_length: int,
+    *,
+    progress: Progress = SILENT,
+) -> OnnxEncoder:
+    """``model_dir`` as an ONNX graph for the stages' own encodings (``evaluate.backend``):
+    exported, checked against PyTorch (``export_onnx``) and, for "onnx-int8", quantised, once
+    per model fingerprint, under ``cache_root/onnx/<fingerprint>/``; later runs and stages
+    reuse the files. Each file is written under a temporary name and renamed when complete, so
+    an interrupted export leaves nothing that looks finished."""
+    import os
+
+    from ballast.models.loading import load_tokenizer
+
+    if backend not in ("onnx", "onnx-int8"):
+        raise ValueError(f"not an ONNX backend: {backend!r}")
+    folder = cache_root / "onnx" / model_fp[:24]
+    graph = folder / ONNX_FILE
+    if not graph.is_file():
+        progress.info(f"{backend}: exporting {model_dir.name} to ONNX (once per model)")
+        part = folder / f".{ONNX_FILE}.part"
+        export_onnx(model_dir, part, progress=progress)
+        os.replace(part, graph)
+    if backend == "onnx-int8":
+        quantised = folder / INT8_FILE
+        if not quantised.is_file():
+            part = folder / f".{INT8_FILE}.part"
+            quantize_int8(graph, part)
+            os.replace(part, quantised)
+        graph = quantised
+    precision = "onnx-int8" if backend == "onnx-int8" else "onnx-float32"
+    tokenizer = load_tokenizer(model_dir)
+    return OnnxEncoder(graph, tokenizer, max_seq_length, precision)

@@ -165,18 +165,18 @@ def system_rankings(run: Any, texts: Sequence[str], k: int) -> dict[str, list[li
     model, the tuned model (when trained; with its query route) and BM25."""
     from ballast.core.lexical import BM25, bm25_rank
     from ballast.core.scoring import rank
-    from ballast.models.loading import load_encoder, model_fingerprint
+    from ballast.models.loading import model_fingerprint
     from ballast.models.query_map import query_route
 
     passages = run.passages()
     pids, ptexts = [p["id"] for p in passages], [p["text"] for p in passages]
     systems: dict[str, tuple[Any, str, Any]] = {
-        "base": (run.base_encoder(), run.base_fp, lambda e: e)
+        "base": (run.search_encoder(), run.base_fp, lambda e: e)
     }
     tuned = run.path("model")
     if tuned.is_dir():
-        model = load_encoder(tuned, max_seq_length=run.cfg.train.max_seq_length)
-        systems["tuned"] = (model, model_fingerprint(tuned), query_route(tuned))
+        fp = model_fingerprint(tuned)
+        systems["tuned"] = (run.search_encoder(tuned, fp), fp, query_route(tuned))
     out: dict[str, list[list[str]]] = {}
     for name, (model, fp, to_query) in systems.items():
         p_emb = run.encode(model, fp, ptexts, f"encoding passages ({name})")

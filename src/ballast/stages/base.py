@@ -68,6 +68,18 @@ class Run:
 
         return load_encoder(self.base_path, max_seq_length=self.cfg.train.max_seq_length)
 
+    def search_encoder(self, path: Path | None = None, fp: str = "") -> Any:
+        """A model (the base model unless ``path``, with fingerprint ``fp``) as the stages
+        encode with it for search, at ``train.max_seq_length`` tokens: PyTorch or its ONNX
+        graph (``evaluate.backend``, exported once into the run's cache). What trains, or must
+        match training, uses ``base_encoder``."""
+        from ballast.models.backend import load_search_encoder
+
+        return load_search_encoder(
+            path or self.base_path, fp if path else self.base_fp, self.cfg.evaluate.backend,
+            self.path("cache"), self.cfg.train.max_seq_length, progress=self.progress,
+        )  # fmt: skip
+
     @property
     def encode_bf16(self) -> bool:
         """``evaluate.bf16`` resolved: whether the stages encode under bfloat16 autocast."""
@@ -78,8 +90,8 @@ class Run:
     def encode(
         self, model: Any, model_fp: str, texts: list[str], label: str, pool: Any = None
     ) -> np.ndarray:
-        """Embeddings as every stage makes them: ``evaluate.batch_size``, ``evaluate.bf16``,
-        through the run's embedding cache."""
+        """Embeddings as every stage makes them: ``evaluate.batch_size``, ``evaluate.bf16``
+        (PyTorch models), through the run's embedding cache."""
         from ballast.models.encode import encode_cached
 
         return encode_cached(

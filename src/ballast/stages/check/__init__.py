@@ -64,7 +64,7 @@ def _detectable(run: Run, counts: dict[str, int]) -> dict[str, dict[str, float]]
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     by_qid = {q["id"]: q for q in queries}
     qrels = qrels_for(queries)
-    model = run.base_encoder()
+    model = run.search_encoder()
     pids = [p["id"] for p in passages]
     p_emb = run.encode(model, run.base_fp, [p["text"] for p in passages],
                        "encoding passages (base)")  # fmt: skip
@@ -95,6 +95,7 @@ STAGE = Stage(
         "gate.alpha",
         "evaluate.batch_size",
         "evaluate.bf16",
+        "evaluate.backend",
         "train.max_seq_length",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),

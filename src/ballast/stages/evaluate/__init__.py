@@ -10,6 +10,7 @@ from typing import Any
 from ballast.config import Config
 from ballast.core.progress import SILENT, Progress
 from ballast.io.files import atomic_dir, read_jsonl, write_json, write_text_atomic
+from ballast.models.encode import encoding_name
 from ballast.stages.base import Run, Stage, guard_files
 from ballast.stages.evaluate.compute import Corpus, EvalSet
 
@@ -133,6 +134,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         devices=cfg.encode_devices,
         references=cfg.references,
         bf16=run.encode_bf16,
+        backend=cfg.backend,
         progress=run.progress,
     )
     truncated = {  # Matryoshka: the same models at smaller sizes, named NAME@DIM
@@ -150,7 +152,7 @@ def evaluate(run: Run) -> dict[str, Any]:
         pairs=(("tuned", "bm25"),),
     )
     summary["skipped_splits"] = skipped
-    summary["encoding"] = "bfloat16" if run.encode_bf16 else "float32"
+    summary["encoding"] = encoding_name(cfg.backend, run.encode_bf16)
     if "guard" in corpora:
         summary["guard_left_out"] = guard_left_out
     write_evaluation(run.dir, summary, per_query_rows(per_query, sets, metrics), run_files)
@@ -204,6 +206,7 @@ def evaluate_files(
         max_seq_length=None,
         references=ev.references,
         bf16=use_bf16(ev.bf16),
+        backend=ev.backend,
         progress=progress,
     )
     baseline = next(iter(named))
@@ -217,7 +220,7 @@ def evaluate_files(
         resamples=ev.bootstrap_resamples,
         confidence=ev.confidence,
     )
-    summary["encoding"] = "bfloat16" if use_bf16(ev.bf16) else "float32"
+    summary["encoding"] = encoding_name(ev.backend, use_bf16(ev.bf16))
     summary["queries_without_judgements"] = unjudged
     summary["qrels_for_unknown_queries"] = unknown
     if unknown:

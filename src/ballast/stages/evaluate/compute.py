@@ -50,6 +50,7 @@ def run_models(
     devices: tuple[str, ...] = (),
     references: tuple[str, ...] = (),
     bf16: bool = False,
+    backend: str = "pytorch",
     progress: Progress = SILENT,
 ) -> tuple[dict[str, dict[str, dict[str, np.ndarray]]], dict[str, str]]:
     """Per-query metric values ``[set][model][metric]`` and TREC run files ``model/set.run``.
@@ -59,9 +60,11 @@ def run_models(
     ``devices``, corpora are encoded by one process per device. ``references``: "bm25" adds
     BM25 over the same corpus as model ``bm25``; "hybrid" adds, for each model, the reciprocal
     rank fusion of its ranking with BM25's, as ``NAME+bm25`` (core/lexical.py). ``bf16``: every
-    model encoded under bfloat16 autocast (all alike, so the comparison stays paired)."""
+    model encoded under bfloat16 autocast (all alike, so the comparison stays paired);
+    ``backend`` "onnx" or "onnx-int8": every model encoded through its ONNX graph, exported
+    once into ``cache``'s folder (``evaluate.backend``)."""
+    from ballast.models.backend import load_search_encoder
     from ballast.models.encode import device_pool, encode_cached
-    from ballast.models.loading import load_encoder
     from ballast.models.query_map import query_route
 
     k = depth(metrics)
@@ -70,7 +73,8 @@ def run_models(
     run_files: dict[str, str] = {}
     deep: dict[tuple[str, str], list[list[str]]] = {}  # (set, model) -> ranking to fuse
     for name, (path, fp) in models.items():
-        model = load_encoder(path, max_seq_length=max_seq_length)
+        model = load_search_encoder(path, fp, backend, cache.root, max_seq_length,
+                                    progress=progress)  # fmt: skip
         to_query = query_route(path)  # a query-side adapter maps queries only
         with device_pool(model, devices) as pool:
             p_emb = {

@@ -51,7 +51,7 @@ def mine(run: Run) -> dict[str, Any]:
     by_pid = {p["id"]: p for p in passages}
     qs = [q for q in queries if q["id"] in train_q]
     cfg = run.cfg.mine
-    model = run.base_encoder()
+    model = run.search_encoder()
     all_emb = _base_corpus_embeddings(run, model, passages)
     tidx = [i for i, p in enumerate(passages) if p["doc_id"] in train_docs]
     tp = [passages[i] for i in tidx]
@@ -264,7 +264,7 @@ STAGE = Stage(
     "mine",
     mine,
     keys=("mine", "seed", "train.max_seq_length", "evaluate.batch_size", "evaluate.encode_devices",
-          "evaluate.bf16"),
+          "evaluate.bf16", "evaluate.backend"),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),
     outputs=("negatives.jsonl", "negatives_sample.md"),
     external=_rescorer_model,

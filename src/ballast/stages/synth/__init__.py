@@ -67,7 +67,7 @@ def _round_trip(run: Run, queries: list[dict], passages: list[dict]) -> tuple[li
 
     if not queries or not passages:
         return queries, []
-    model = run.base_encoder()
+    model = run.search_encoder()
     ids = [p["id"] for p in passages]
     p_emb = run.encode(model, run.base_fp, [p["text"] for p in passages], "round-trip passages")
     q_emb = run.encode(model, run.base_fp, [q["text"] for q in queries], "round-trip queries")
@@ -109,7 +109,8 @@ def external_inputs(run: Run) -> dict[str, str]:
 STAGE = Stage(
     "synth",
     synth,
-    keys=("synth", "seed", "evaluate.batch_size", "evaluate.bf16", "train.max_seq_length"),
+    keys=("synth", "seed", "evaluate.batch_size", "evaluate.bf16", "evaluate.backend",
+          "train.max_seq_length"),
     inputs=("passages.jsonl",),
     outputs=("queries.jsonl",),
     external=external_inputs,

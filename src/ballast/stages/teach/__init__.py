@@ -102,7 +102,7 @@ def teach(run: Run) -> dict[str, Any]:
     passages, queries, splits = run.passages(), run.queries(), run.splits()
     by_qid = {q["id"]: q for q in queries}
     texts, ids = [p["text"] for p in passages], [p["id"] for p in passages]
-    model = run.base_encoder()
+    model = run.search_encoder()
 
     def enc(items: list[str], label: str) -> np.ndarray:
         return run.encode(model, run.base_fp, items, label)
@@ -189,6 +189,7 @@ STAGE = Stage(
         "train.max_seq_length",  # the base model's encoding length
         "evaluate.batch_size",
         "evaluate.bf16",
+        "evaluate.backend",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),
     outputs=("labels.jsonl", "teacher.json"),
