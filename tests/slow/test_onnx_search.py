@@ -5,10 +5,9 @@ the stated tolerance of PyTorch float32.
 
 The tolerance: onnxruntime float32 matches PyTorch within 1e-5 per embedding (the export's own
 check, tests/slow/test_onnx_export.py), so every ranking is the same but for exact ties; int8
-weights move embeddings by up to ~4e-2 (measured, docs/scale.md), and one query whose relevant
-passage changes rank moves a split's mean by up to 1/n, so the means may differ by a few
-queries' worth: 3/n is allowed here (the measured differences, docs/scale.md, stay within 2/n
-on real splits)."""
+weights move embeddings by up to ~4e-2 and moved a model's mean nDCG@10 by up to 0.0128 on 366
+real questions, 4.7/n (measured, docs/scale.md), so 5/n is allowed here: loose on a set this
+small, yet broken int8 encodings (ranking at random) fail it by far."""
 
 from __future__ import annotations
 
@@ -60,13 +59,15 @@ def test_int8_search_is_within_tolerance_exported_once_and_recorded(run: Path) -
     assert reference["encoding"] == "float32"
     int8 = evaluate(run, "evaluate.backend=onnx-int8")
     assert int8["encoding"] == "onnx-int8"
+    r = runner.invoke(app, ["gate", str(run), "-q"], catch_exceptions=False)
+    assert "int8" in json.loads((run / "gate.json").read_text("utf-8"))["caution"], r.output
     graphs = sorted((run / "cache" / "onnx").rglob("*.onnx"))
     # base and tuned are the same weights here, so one fingerprint: one graph and its int8 copy
     assert [g.name for g in graphs] == ["model.onnx", "model_int8.onnx"]
     assert not list((run / "cache" / "onnx").rglob("*.part"))  # nothing half-written left
     got, want = means(int8), means(reference)
     for key, (value, n) in want.items():
-        assert abs(got[key][0] - value) <= 3 / n, (key, got[key][0], value)
+        assert abs(got[key][0] - value) <= 5 / n, (key, got[key][0], value)
     stamps = [g.stat().st_mtime_ns for g in graphs]
     again = evaluate(run, "evaluate.backend=onnx-int8")  # graphs and embeddings from the cache
     assert [g.stat().st_mtime_ns for g in graphs] == stamps

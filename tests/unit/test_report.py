@@ -192,3 +192,20 @@ def test_code_spans_in_the_verdict_are_code_not_backticks() -> None:
     assert _code("use `ballast export --force` <now>") == (
         "use <code>ballast export --force</code> &lt;now&gt;"
     )
+
+
+@pytest.mark.parametrize(
+    ("encoding", "said"),
+    [
+        ("float32", ""),
+        (None, ""),
+        ("bfloat16", "bfloat16 (evaluate.bf16)"),
+        ("onnx-float32", "evaluate.backend = onnx)"),
+        ("onnx-int8", "Caution: the figures were computed with int8 weights"),
+    ],
+)
+def test_the_report_says_what_the_embeddings_were_computed_in(encoding, said) -> None:  # noqa: ANN001
+    from ballast.stages.report.content import encoding_note
+
+    note = encoding_note({"encoding": encoding} if encoding else {})
+    assert (said in note) if said else note == ""

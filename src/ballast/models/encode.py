@@ -115,6 +115,14 @@ def encoding_name(backend: str, bf16: bool) -> str:
     return "onnx-int8" if backend == "onnx-int8" else "onnx-float32"
 
 
+# Said by the gate and the report where a verdict rests on int8 encodings (docs/scale.md).
+INT8_CAUTION = (
+    "the figures were computed with int8 weights (evaluate.backend = onnx-int8), which moved a "
+    "gain by 0.022 nDCG@10 on 366 real questions against float32 (docs/scale.md): use it to "
+    "explore, and decide the verdict with evaluate.backend = pytorch"
+)
+
+
 def precision_of(model: Any, bf16: bool) -> str:
     """What an encoding with ``model`` is cached and reported as: an ONNX search encoder says
     its own ("onnx-float32", "onnx-int8"; bfloat16 autocast does not touch it), a PyTorch model

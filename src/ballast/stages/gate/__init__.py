@@ -15,6 +15,11 @@ def gate(run: Run) -> dict[str, Any]:
 
     metrics = json.loads(run.need("metrics.json", "evaluate").read_text("utf-8"))
     verdict = decide(metrics, run.cfg.gate)
+    if metrics.get("encoding") == "onnx-int8":
+        from ballast.models.encode import INT8_CAUTION
+
+        verdict["caution"] = INT8_CAUTION
+        run.progress.info(f"gate: caution: {INT8_CAUTION}")
     write_json(run.path("gate.json"), verdict)
     return {"passed": verdict["passed"], "summary": verdict["summary"]}
 

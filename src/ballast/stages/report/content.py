@@ -165,7 +165,15 @@ REFERENCES = ("bm25", "base+bm25", "tuned+bm25")
 def encoding_note(metrics: dict[str, Any]) -> str:
     """A sentence on the precision the embeddings were computed in (metrics.json "encoding");
     empty for float32 or when not recorded."""
-    if metrics.get("encoding") != "bfloat16":
+    encoding = metrics.get("encoding")
+    if encoding == "onnx-float32":
+        return (" Embeddings computed with the models' ONNX graphs (evaluate.backend = onnx),"
+                " within 1e-5 of PyTorch.")  # fmt: skip
+    if encoding == "onnx-int8":
+        from ballast.models.encode import INT8_CAUTION
+
+        return f" Caution: {INT8_CAUTION}."
+    if encoding != "bfloat16":
         return ""
     return (" Embeddings computed in bfloat16 (evaluate.bf16), base and tuned alike: on splits"
             " of 300 queries or more, means within 0.003 and gains within 0.0015 of float32;"
