@@ -44,6 +44,8 @@ KEY = {
     "evaluate.batch_size": {"synth", "check", "mine", "teach", "train", "evaluate", "export"},
     "evaluate.encode_devices": {"mine", "evaluate"},
     "evaluate.bf16": {"synth", "check", "mine", "teach", "train", "evaluate"},  # every encoding
+    # the search encodings; train and its safety net encode with PyTorch always
+    "evaluate.backend": {"synth", "check", "mine", "teach", "evaluate"},
     # train keeps the best dev checkpoint by it; check estimates the detectable gain in it
     "gate.primary_metric": {"check", "teach", "train", "gate", "export"},
     "gate.splits": {"check", "train", "gate", "export"},  # export measures int8 on a gated split
