@@ -166,7 +166,8 @@ encode_devices = []        # e.g. ["cuda:0", "cuda:1"]: encode passages (mine, e
 bf16 = "auto"              # encode (every stage, base and tuned alike) under bfloat16 autocast
                            # where it is native, as train.bf16; false = float32
 backend = "pytorch"        # what the stages search with: "pytorch", "onnx", or "onnx-int8"
-                           # (int8 weights: faster where bf16 is not native; docs/scale.md)
+                           # (int8: 1.3x faster, coarser figures: for exploring, not for
+                           # a verdict; docs/scale.md)
 references = ["bm25", "hybrid"]  # lexical reference rows (never gated): BM25, and each model
                            # fused with BM25 by reciprocal rank fusion (NAME+bm25)
 

@@ -458,9 +458,10 @@ class EvaluateConfig:
     bf16: bool | str = "auto"
     # What the stages encode with for search (synth's round trip, check, mine, teach, judge,
     # evaluate): "pytorch" (the reference), "onnx" (the model exported to an ONNX graph, run
-    # by onnxruntime) or "onnx-int8" (that graph with int8 weights: faster on CPUs without
-    # bfloat16, rankings within a measured tolerance, docs/scale.md). Each model is exported
-    # once into the run's cache. Training, the safety net and the adapter use PyTorch always.
+    # by onnxruntime: the same figures, no faster) or "onnx-int8" (that graph with int8
+    # weights: 1.3-1.4x faster on CPUs without bfloat16, but it moved a gated gain by 0.022, so
+    # for exploring, not for a verdict; docs/scale.md). Each model is exported once into the
+    # run's cache. Training, the safety net and the adapter use PyTorch always.
     backend: str = "pytorch"
     # lexical reference rows, never gated: "bm25" (BM25 over the same passages) and "hybrid"
     # (each model fused with BM25 by reciprocal rank fusion, NAME+bm25)
