@@ -13,12 +13,12 @@ from typing import Any
 
 import numpy as np
 
+from ballast.config.sections import BACKENDS
 from ballast.core.errors import InputError
 from ballast.core.progress import SILENT, Progress
 from ballast.io.files import atomic_path, write_bytes_atomic, write_text_atomic
 
 FORMATS = ("npy", "parquet")
-BACKENDS = ("pytorch", "onnx", "onnx-int8")
 
 
 def _encoder(bundle: Path, manifest: dict[str, Any], backend: str) -> tuple[Any, int]:

@@ -431,6 +431,11 @@ class TrainConfig:
         _range("train.checkpoint_steps", self.checkpoint_steps, 0, 10**9)
 
 
+# The encoders a model runs on: ``evaluate.backend`` for the stages, ``ballast embed
+# --backend`` for a bundle (models/backend.py, bundle/embed.py).
+BACKENDS = ("pytorch", "onnx", "onnx-int8")
+
+
 @dataclass(frozen=True)
 class EvaluateConfig:
     # () = every split there is: dev, test, the real-question splits when synth.questions is
@@ -484,8 +489,8 @@ class EvaluateConfig:
         _range("evaluate.batch_size", self.batch_size, 1, 4096)
         import re
 
-        if self.backend not in ("pytorch", "onnx", "onnx-int8"):
-            _fail("evaluate.backend", self.backend, "one of pytorch, onnx, onnx-int8")
+        if self.backend not in BACKENDS:
+            _fail("evaluate.backend", self.backend, f"one of {', '.join(BACKENDS)}")
         if self.backend != "pytorch" and self.bf16 is True:
             _fail("evaluate.bf16", self.bf16, f'false or "auto" with evaluate.backend = '
                   f'"{self.backend}" (bfloat16 autocast applies to PyTorch only)')

@@ -69,15 +69,19 @@ class Run:
         return load_encoder(self.base_path, max_seq_length=self.cfg.train.max_seq_length)
 
     def search_encoder(self, path: Path | None = None, fp: str = "") -> Any:
-        """A model (the base model unless ``path``, with fingerprint ``fp``) as the stages
-        encode with it for search, at ``train.max_seq_length`` tokens: PyTorch or its ONNX
-        graph (``evaluate.backend``, exported once into the run's cache). What trains, or must
-        match training, uses ``base_encoder``."""
+        """A model (the base model unless ``path``; ``fp``, its fingerprint, is computed when
+        not given) as the stages encode with it for search, at ``train.max_seq_length``
+        tokens: PyTorch or its ONNX graph (``evaluate.backend``, exported once into the run's
+        cache under the fingerprint). What trains, or must match training, uses
+        ``base_encoder``."""
         from ballast.models.backend import load_search_encoder
+        from ballast.models.loading import model_fingerprint
 
+        if path is None:
+            path, fp = self.base_path, self.base_fp
         return load_search_encoder(
-            path or self.base_path, fp if path else self.base_fp, self.cfg.evaluate.backend,
-            self.path("cache"), self.cfg.train.max_seq_length, progress=self.progress,
+            path, fp or model_fingerprint(path), self.cfg.evaluate.backend, self.path("cache"),
+            self.cfg.train.max_seq_length, progress=self.progress,
         )  # fmt: skip
 
     @property
