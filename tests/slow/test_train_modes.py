@@ -253,3 +253,17 @@ def test_frozen_layers_refusals() -> None:
     with pytest.raises(ConfigError) as info:
         build_config({"train": {"frozen_layers": 2, "mode": "lora"}})
     assert info.value.key == "train.frozen_layers"
+
+
+def test_min_steps_raises_the_epochs(tmp_path: Path) -> None:
+    """train.min_steps = 12 on a corpus whose pairs make fewer steps an epoch: the trainer
+    (transformers' Trainer, the reference for what a step is) runs whole epochs until at least
+    12 optimizer steps are done, and train.json says how many epochs that took."""
+    cfg = project(tmp_path, "min_steps = 12\nmix_weights = []")
+    proc = ballast_run(cfg)
+    assert proc.returncode in (0, 1), proc.stderr
+    stats = json.loads((cfg.parent / "run" / "train.json").read_text("utf-8"))
+    per_epoch = -(-stats["pairs"] // 8)
+    assert per_epoch < 12  # the floor is what raises the epochs here
+    assert stats["min_steps"] == 12 and stats["epochs"] == -(-12 // per_epoch)
+    assert stats["steps"] == stats["epochs"] * per_epoch >= 12

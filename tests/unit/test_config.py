@@ -6,6 +6,7 @@ import dataclasses
 import json
 import tomllib
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -322,3 +323,22 @@ def test_the_run_folder_defaults_to_runs_beside_the_config_file(tmp_path: Path) 
     assert load_config(cfg_file, ["name=v2"]).run_path == tmp_path / "project" / "runs" / "v2"
     cfg_file.write_text('name = "manuals"\nrun_dir = "out"\n', "utf-8")
     assert load_config(cfg_file).run_path == tmp_path / "project" / "out"
+
+
+def test_min_steps_epochs_and_refusal() -> None:
+    """train.min_steps: the epochs are the fewest whole passes over the training examples (or
+    train.max_pairs of them) that make the floor of optimizer steps, a step being one batch
+    (common practice); the adapter mode, whose epochs are its own key, refuses it."""
+    from ballast.stages.train.full import with_min_steps
+
+    def epochs(n: int, **train: Any) -> int:
+        return with_min_steps(build_config({"train": train}).train, n).epochs
+
+    assert epochs(96, min_steps=32) == 11  # 3 batches of 32 an epoch: 33 steps
+    assert epochs(96, min_steps=0, epochs=2) == 2
+    assert epochs(2000, min_steps=32) == 1  # 63 steps in one epoch already
+    assert epochs(96, min_steps=32, epochs=20) == 20  # never lowered
+    assert epochs(5000, min_steps=32, max_pairs=64) == 16  # 2 batches of the 64 kept
+    with pytest.raises(ConfigError) as info:
+        build_config({"train": {"min_steps": 10, "mode": "adapter"}})
+    assert info.value.key == "train.min_steps"

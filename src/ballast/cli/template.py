@@ -153,6 +153,8 @@ minutes = 0                # a budget: a warm-up times a step here and the train
 max_pairs = 0              # cap the training examples at this number (seeded); 0 = all
 frozen_layers = 0          # keep the embeddings and the lowest N layers at the base weights
                            # (faster steps: the backward pass stops above them)
+min_steps = 0              # at least this many optimizer steps: on a small collection the
+                           # epochs are raised until the pairs fill them; 0 = epochs as set
 
 [evaluate]
 splits = []               # [] = every split there is: dev, test; with synth.questions also

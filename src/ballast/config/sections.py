@@ -370,9 +370,17 @@ class TrainConfig:
     # the token embeddings and the lowest N transformer layers keep the base weights: the
     # backward pass stops above them (stages/train/full.py; docs/training.md, "Frozen layers")
     frozen_layers: int = 0
+    # at least this many optimizer steps: on a small collection the epochs are raised until
+    # the training examples fill them (stages/train/full.py; docs/training.md, "A floor of
+    # steps"); 0 = the epochs as set
+    min_steps: int = 0
 
     def __post_init__(self) -> None:
         _range("train.minutes", self.minutes, 0.0, 100_000.0)
+        _range("train.min_steps", self.min_steps, 0, 10**7)
+        if self.min_steps and self.mode == "adapter":
+            _fail("train.min_steps", self.min_steps, "0 when train.mode is 'adapter' "
+                  "(its epochs are train.adapter_epochs)")  # fmt: skip
         _range("train.frozen_layers", self.frozen_layers, 0, 1000)
         if self.frozen_layers and self.mode != "full":
             _fail("train.frozen_layers", self.frozen_layers, "0 unless train.mode is 'full'")

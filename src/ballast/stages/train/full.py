@@ -176,6 +176,27 @@ def _loss(model: Any, cfg: TrainConfig) -> Any:
     return loss
 
 
+def with_min_steps(cfg: TrainConfig, n: int) -> TrainConfig:
+    """``cfg`` with its epochs raised so that ``n`` training examples (or ``train.max_pairs``
+    of them, when that is fewer) make at least ``train.min_steps`` optimizer steps. A fixed
+    number of steps whatever the collection's size is how domain adaptation is usually trained
+    (GPL, Wang et al., NAACL 2022, trains every collection for the same number of steps); one
+    epoch of a small collection's few pairs is a handful of steps (three on a 300-passage
+    FAQ). ``train.minutes`` still caps the examples so that the raised epochs fit it."""
+    import dataclasses
+
+    if not cfg.min_steps:
+        return cfg
+    kept = min(n, cfg.max_pairs) if cfg.max_pairs else n
+    per_epoch = max(1, -(-kept // cfg.batch_size))
+    epochs = max(cfg.epochs, -(-cfg.min_steps // per_epoch))
+    if epochs == cfg.epochs:
+        return cfg
+    from ballast.config.record import unwrap
+
+    return dataclasses.replace(unwrap(cfg), epochs=epochs)
+
+
 ESTIMATE_ABOVE = 30  # steps: shorter trainings start at once, unless a budget is set
 
 
@@ -361,6 +382,11 @@ def train_model(
     if teach is not None:  # the teacher's standardised scores of positive and candidates
         columns["label"] = [e["labels"] for e in examples]
     loss = _loss(model, cfg) if teach is None else distillation_loss(model, teach)
+    raised = with_min_steps(cfg, len(columns["anchor"]))
+    if raised.epochs != cfg.epochs:
+        progress.info(f"train: train.min_steps = {cfg.min_steps}: {raised.epochs} epochs "
+                      "over the training examples")  # fmt: skip
+    cfg = raised
     columns, estimate = _estimate(model, loss, columns, cfg, seed=seed, bf16=bf16,
                                   work_dir=work_dir, progress=progress,
                                   net_texts=net_texts)  # fmt: skip
@@ -456,6 +482,8 @@ def train_model(
         }
     return {
         "pairs": n_examples,
+        # only where train.min_steps is set, so earlier runs' records stay as they were
+        **({"min_steps": cfg.min_steps, "epochs": cfg.epochs} if cfg.min_steps else {}),
         "estimate": estimate,
         "hard_negatives_per_pair": n_neg,
         "steps": int(result.global_step),
