@@ -372,7 +372,7 @@ class TrainConfig:
     frozen_layers: int = 0
     # at least this many optimizer steps: on a small collection the epochs are raised until
     # the training examples fill them (stages/train/full.py; docs/training.md, "A floor of
-    # steps"); 0 = the epochs as set
+    # steps": off, it overfit four small FAQs); 0 = the epochs as set
     min_steps: int = 0
 
     def __post_init__(self) -> None:

@@ -182,7 +182,9 @@ def with_min_steps(cfg: TrainConfig, n: int) -> TrainConfig:
     number of steps whatever the collection's size is how domain adaptation is usually trained
     (GPL, Wang et al., NAACL 2022, trains every collection for the same number of steps); one
     epoch of a small collection's few pairs is a handful of steps (three on a 300-passage
-    FAQ). ``train.minutes`` still caps the examples so that the raised epochs fit it."""
+    FAQ). ``train.minutes`` still caps the examples so that the raised epochs fit it. Off by
+    default: on four small FAQs 32 steps (4 to 11 epochs) overfit their few pairs and lost on
+    real dev questions (docs/training.md, "A floor of steps")."""
     import dataclasses
 
     if not cfg.min_steps:
