@@ -187,10 +187,11 @@ def with_min_steps(cfg: TrainConfig, n: int) -> TrainConfig:
     real dev questions (docs/training.md, "A floor of steps")."""
     import dataclasses
 
+    from ballast.stages.train import budget
+
     if not cfg.min_steps:
         return cfg
-    kept = min(n, cfg.max_pairs) if cfg.max_pairs else n
-    per_epoch = max(1, -(-kept // cfg.batch_size))
+    per_epoch = max(1, -(-budget.cap(n, cfg, None) // cfg.batch_size))
     epochs = max(cfg.epochs, -(-cfg.min_steps // per_epoch))
     if epochs == cfg.epochs:
         return cfg
