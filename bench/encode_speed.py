@@ -27,8 +27,16 @@ import numpy as np
 
 from bench.teachers import cpu
 
+TORCH_F32 = "torch float32 (as the stages encode)"
+ONNX_F32 = "onnx float32, longest first"
+ONNX_INT8 = "onnx int8, longest first"
 
-def main(argv: list[str] | None = None) -> int:
+
+def measure(run: Path, n_passages: int = 2000, n_queries: int = 0,
+            only: tuple[str, ...] = ()) -> dict:  # fmt: skip
+    """Encode RUN's first ``n_passages`` passages and their queries with each backend (those
+    named in ``only``, the reference always first), one after the other; passages/s, the ratio
+    to the reference, the largest embedding difference and nDCG@10 of each."""
     import importlib.resources
 
     import torch
@@ -39,17 +47,12 @@ def main(argv: list[str] | None = None) -> int:
     from ballast.models.loading import load_encoder
     from ballast.models.onnx import OnnxEncoder, export_onnx, quantize_int8
 
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("run", type=Path)
-    ap.add_argument("--passages", type=int, default=2000)
-    ap.add_argument("--queries", type=int, default=0, help="at most this many (0: all)")
-    args = ap.parse_args(argv)
-    rows = lambda name: [json.loads(x) for x in (args.run / name).read_text("utf-8").splitlines()]  # noqa: E731
-    passages = rows("passages.jsonl")[: args.passages]
+    rows = lambda name: [json.loads(x) for x in (run / name).read_text("utf-8").splitlines()]  # noqa: E731
+    passages = rows("passages.jsonl")[:n_passages]
     have = {p["id"] for p in passages}
     queries = [q for q in rows("queries.jsonl") if q["passage_id"] in have]
     human = [q for q in queries if q.get("origin") == "human"]
-    queries = (human or queries)[: args.queries or None]
+    queries = (human or queries)[: n_queries or None]
     texts, ids = [p["text"] for p in passages], [p["id"] for p in passages]
     qrels = qrels_for(queries)
     judged = [{p: g for p, g in qrels[q["id"]].items() if p in have} for q in queries]
@@ -75,19 +78,20 @@ def main(argv: list[str] | None = None) -> int:
     fp32 = OnnxEncoder(tmp / "model.onnx", model.tokenizer, 128)
     int8 = OnnxEncoder(tmp / "model_int8.onnx", model.tokenizer, 128)
     backends = {
-        "torch float32 (as the stages encode)": lambda items: encode(model, items, batch_size=64),
-        "torch float32, longest first":
-            longest_first(lambda items: encode(model, items, batch_size=64)),
-        "torch bfloat16 autocast (evaluate.bf16)":
-            lambda items: encode(model, items, batch_size=64, bf16=True),
-        "onnx float32, longest first":
-            longest_first(lambda items: fp32.encode(items, batch_size=64)),
-        "onnx int8, longest first": longest_first(lambda items: int8.encode(items, batch_size=64)),
+        TORCH_F32: lambda items: encode(model, items, batch_size=64),
+        "torch float32, longest first": longest_first(
+            lambda items: encode(model, items, batch_size=64)
+        ),
+        "torch bfloat16 autocast (evaluate.bf16)": lambda items: encode(
+            model, items, batch_size=64, bf16=True
+        ),
+        ONNX_F32: longest_first(lambda items: fp32.encode(items, batch_size=64)),
+        ONNX_INT8: longest_first(lambda items: int8.encode(items, batch_size=64)),
     }
-    print(f"machine: {cpu()}; torch threads {torch.get_num_threads()}")
-    print(f"{len(texts)} passages, {len(queries)} {'real' if human else 'synthetic'} queries\n")
-    print("| backend | passages/s | vs the reference | max abs diff | nDCG@10 | diff |")
-    print("|---|---|---|---|---|---|")
+    if only:
+        backends = {k: v for k, v in backends.items() if k == TORCH_F32 or k in only}
+    out = {"passages": len(texts), "queries": len(queries), "real": bool(human),
+           "threads": torch.get_num_threads(), "rows": []}  # fmt: skip
     ref = ref_q = ref_ndcg = rate0 = None
     for name, fn in backends.items():
         fn(texts[:64])  # warm-up
@@ -100,9 +104,26 @@ def main(argv: list[str] | None = None) -> int:
         ndcg = mean_metric(q, p, ids, judged, "ndcg@10")
         ref_ndcg = ndcg if ref_ndcg is None else ref_ndcg
         diff = float(max(np.abs(p - ref).max(), np.abs(q - ref_q).max()))
-        print(f"| {name} | {rate:.1f} | {rate / rate0:.2f}x | {diff:.1e} | {ndcg:.4f} "
-              f"| {ndcg - ref_ndcg:+.4f} |")  # fmt: skip
-        sys.stdout.flush()
+        out["rows"].append({"backend": name, "rate": rate, "vs_ref": rate / rate0, "diff": diff,
+                            "ndcg": ndcg, "ndcg_diff": ndcg - ref_ndcg})  # fmt: skip
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("run", type=Path)
+    ap.add_argument("--passages", type=int, default=2000)
+    ap.add_argument("--queries", type=int, default=0, help="at most this many (0: all)")
+    args = ap.parse_args(argv)
+    m = measure(args.run, args.passages, args.queries)
+    print(f"machine: {cpu()}; torch threads {m['threads']}")
+    print(f"{m['passages']} passages, {m['queries']} {'real' if m['real'] else 'synthetic'} "
+          "queries\n")  # fmt: skip
+    print("| backend | passages/s | vs the reference | max abs diff | nDCG@10 | diff |")
+    print("|---|---|---|---|---|---|")
+    for r in m["rows"]:
+        print(f"| {r['backend']} | {r['rate']:.1f} | {r['vs_ref']:.2f}x | {r['diff']:.1e} "
+              f"| {r['ndcg']:.4f} | {r['ndcg_diff']:+.4f} |")  # fmt: skip
     return 0
 
 
