@@ -5,7 +5,8 @@ questions about training documents all judging against a share of them training
 (``--recipes questions``), the packaged query writer prompted with the bundled worked
 examples against real questions as its examples (``--recipes examples``; slow), or the lowest
 transformer layers frozen (``--recipes frozen``), or one epoch against a floor of optimizer
-steps (``--recipes steps``).
+steps (``--recipes steps``), or the inverse-cloze queries alone against them with the keyword
+queries, the product default (``--recipes generators``).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
     python -m bench.teachers OUT --faq --source perl   # one FAQ of the pool on its own
@@ -61,6 +62,10 @@ FROZEN = {  # the embeddings and the lowest N transformer layers keep the base w
     "nothing frozen": ["train.frozen_layers=0"],
     "2 lowest layers frozen": ["train.frozen_layers=2"],
     "3 lowest layers frozen": ["train.frozen_layers=3"],
+}
+GENERATORS = {  # what the FAQ benchmarks wrote (inverse cloze) against the product default
+    "inverse cloze only": ['synth.generators=["ict"]'],
+    "inverse cloze + keywords (the product default)": ['synth.generators=["ict", "keywords"]'],
 }
 STEPS = {  # one epoch of a small collection's pairs is a handful of steps (train.min_steps)
     "one epoch": ["train.min_steps=0"],
@@ -175,7 +180,8 @@ def main(argv: list[str] | None = None) -> int:
     where = ap.add_mutually_exclusive_group(required=True)
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
-    sets = ("teachers", "quantity", "batching", "questions", "examples", "frozen", "steps")
+    sets = ("teachers", "quantity", "batching", "questions", "examples", "frozen", "steps",
+            "generators")  # fmt: skip
     ap.add_argument("--recipes", default="teachers", choices=sets)
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
@@ -186,7 +192,8 @@ def main(argv: list[str] | None = None) -> int:
     cfg = config(args)
     recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING,
                "questions": QUESTIONS, "examples": EXAMPLES,
-               "frozen": FROZEN, "steps": STEPS}[args.recipes]  # fmt: skip
+               "frozen": FROZEN, "steps": STEPS,
+               "generators": GENERATORS}[args.recipes]  # fmt: skip
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}
