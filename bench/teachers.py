@@ -6,7 +6,8 @@ questions about training documents all judging against a share of them training
 examples against real questions as its examples (``--recipes examples``; slow), or the lowest
 transformer layers frozen (``--recipes frozen``), or one epoch against a floor of optimizer
 steps (``--recipes steps``), or the inverse-cloze queries alone against them with the keyword
-queries, the product default (``--recipes generators``).
+queries, the product default (``--recipes generators``), or the safety net scored on every dev
+query against the real dev questions alone (``--recipes net``).
 
     python -m bench.teachers OUT (--demo | --faq) [--recipes NAME] [--llm] [--set KEY=VALUE ...]
     python -m bench.teachers OUT --faq --source perl   # one FAQ of the pool on its own
@@ -66,6 +67,10 @@ FROZEN = {  # the embeddings and the lowest N transformer layers keep the base w
 GENERATORS = {  # what the FAQ benchmarks wrote (inverse cloze) against the product default
     "inverse cloze only": ['synth.generators=["ict"]'],
     "inverse cloze + keywords (the product default)": ['synth.generators=["ict", "keywords"]'],
+}
+NET = {  # the dev queries the safety net scores (train.mix_queries); the same tuned model
+    "the net on every dev query (the default)": ["train.mix_queries=all"],
+    "the net on the real dev questions alone": ["train.mix_queries=real"],
 }
 STEPS = {  # one epoch of a small collection's pairs is a handful of steps (train.min_steps)
     "one epoch": ["train.min_steps=0"],
@@ -181,7 +186,7 @@ def main(argv: list[str] | None = None) -> int:
     where.add_argument("--demo", action="store_true")
     where.add_argument("--faq", action="store_true")
     sets = ("teachers", "quantity", "batching", "questions", "examples", "frozen", "steps",
-            "generators")  # fmt: skip
+            "generators", "net")  # fmt: skip
     ap.add_argument("--recipes", default="teachers", choices=sets)
     ap.add_argument("--llm", action="store_true")
     ap.add_argument("--cache", type=Path, default=default_cache())
@@ -193,7 +198,7 @@ def main(argv: list[str] | None = None) -> int:
     recipes = {"teachers": RECIPES, "quantity": QUANTITY, "batching": BATCHING,
                "questions": QUESTIONS, "examples": EXAMPLES,
                "frozen": FROZEN, "steps": STEPS,
-               "generators": GENERATORS}[args.recipes]  # fmt: skip
+               "generators": GENERATORS, "net": NET}[args.recipes]  # fmt: skip
     recipes = recipes | (LLM if args.llm else {})
     if args.only:
         recipes = {k: v for k, v in recipes.items() if k in args.only}

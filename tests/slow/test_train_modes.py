@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tests.conftest import DEMO, write_config
+from tests.conftest import DEMO, make_demo_slice, write_config
 
 pytestmark = pytest.mark.slow
 
@@ -267,3 +267,44 @@ def test_min_steps_raises_the_epochs(tmp_path: Path) -> None:
     assert per_epoch < 12  # the floor is what raises the epochs here
     assert stats["min_steps"] == 12 and stats["epochs"] == -(-12 // per_epoch)
     assert stats["steps"] == stats["epochs"] * per_epoch >= 12
+
+
+def test_the_net_on_real_dev_questions_alone(tmp_path: Path) -> None:
+    """train.mix_queries = "real": the safety net scores the real questions about dev documents
+    (human_dev) alone: at weight 0 (the base model) and at the weight it keeps (the model that
+    ships) it scores them as evaluate scores the two models on human_dev over the whole corpus
+    (the net re-ranks the base model's top 100 plus the judged passages, which hold every
+    passage of a corpus this small)."""
+    docs, questions = make_demo_slice(tmp_path, n_docs=4)
+    cfg = write_config(
+        tmp_path, docs, questions, **TINY, split="dev_fraction = 0.25",
+        train="batch_size = 8\nmax_seq_length = 64\nmix_queries = \"real\"\nmix_search = \"all\"",
+    )  # fmt: skip
+    text = cfg.read_text("utf-8").replace(
+        'splits = ["dev", "test", "human"]', 'splits = ["dev", "test", "human", "human_dev"]', 1
+    )
+    cfg.write_text(text, "utf-8")
+    r = ballast_run(cfg)
+    assert r.returncode in (0, 1), r.stderr[-2000:]
+    run = tmp_path / "run"
+    real = json.loads((run / "splits.json").read_text("utf-8"))["queries"]["human_dev"]
+    net = json.loads((run / "train.json").read_text("utf-8"))["mix"]
+    assert net["queries"] == "real" and net["dev_queries"] == len(real) > 0
+    assert set(net["dev_scores"]) == {"0", "0.25", "0.5", "0.75", "1"}
+    models = json.loads((run / "metrics.json").read_text("utf-8"))["splits"]["human_dev"]["models"]
+    assert net["dev_scores"]["0"] == pytest.approx(models["base"]["ndcg@10"]["mean"], abs=1e-6)
+    # what ships is the weight kept, and evaluate scores it as the net did
+    kept = net["dev_scores"][f"{net['weight']:g}"]
+    assert kept == pytest.approx(models["tuned"]["ndcg@10"]["mean"], abs=1e-6)
+
+
+def test_the_net_on_real_questions_needs_some(tmp_path: Path) -> None:
+    """With no real questions, train.mix_queries = "real" stops the run at the pre-flight
+    check, before mining, with exit 2 and the key named."""
+    cfg = project(tmp_path, 'mix_queries = "real"')
+    r = ballast_run(cfg)
+    assert r.returncode == 2, r.stderr[-2000:]
+    assert "pre-flight" in r.stderr and "train.mix_queries = 'real'" in r.stderr
+    run = tmp_path / "run"
+    assert "train.mix_queries" in (run / "check.json").read_text("utf-8")
+    assert not (run / "negatives.jsonl").exists() and not (run / "model").exists()

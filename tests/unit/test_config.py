@@ -342,3 +342,19 @@ def test_min_steps_epochs_and_refusal() -> None:
     with pytest.raises(ConfigError) as info:
         build_config({"train": {"min_steps": 10, "mode": "adapter"}})
     assert info.value.key == "train.min_steps"
+
+
+def test_mix_queries_chooses_the_dev_queries_the_net_scores() -> None:
+    """train.mix_queries: "all" scores the net on the synthetic dev split and the real dev
+    questions, in that order (what train.eval_steps scores too), "real" on the real ones alone;
+    any other value is refused naming the key."""
+    from ballast.stages.train import dev_query_ids
+
+    splits = {"queries": {"dev": ["d1", "d2"], "human_dev": ["h1"], "human": ["x"]}}
+    assert dev_query_ids(splits) == ["d1", "d2", "h1"]
+    assert dev_query_ids(splits, "real") == ["h1"]
+    assert dev_query_ids({"queries": {"dev": ["d1"]}}, "real") == []
+    assert build_config({"train": {"mix_queries": "real"}}).train.mix_queries == "real"
+    with pytest.raises(ConfigError) as info:
+        build_config({"train": {"mix_queries": "synthetic"}})
+    assert info.value.key == "train.mix_queries"

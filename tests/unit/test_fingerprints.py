@@ -50,6 +50,7 @@ KEY = {
     "gate.primary_metric": {"check", "teach", "train", "gate", "export"},
     "gate.splits": {"check", "train", "gate", "export"},  # export measures int8 on a gated split
     "gate.min_queries": {"split", "check", "train", "gate"},  # human keeps as many; pre-flight
+    "train.mix_queries": {"check", "train", "export"},  # check refuses "real" with no human_dev
     "gate.alpha": {"check", "gate"},  # the detectable gain is computed at the gate's level
 }
 

@@ -147,6 +147,7 @@ bf16 = "auto"              # bfloat16 autocast: true, false, or "auto": on where
 mix_weights = [0.0, 0.25, 0.5, 0.75, 1.0]  # the safety net: these mixes of base (0) and tuned
                            # (1) weights are scored on dev and the best kept; [] = off
 mix_search = "descend"     # score from 1 down, stop once the dev score falls; "all": every one
+mix_queries = "all"        # the net scores dev and human_dev; "real": the real questions alone
 batching = "random"        # or "length": batches of similar length, fewer pad tokens
 minutes = 0                # a budget: a warm-up times a step here and the training examples
                            # are capped (seeded choice) so training fits; 0 = no budget

@@ -359,6 +359,10 @@ class TrainConfig:
     # "descend": score from 1 down and stop once the score falls (the same weight on a curve
     # with one peak, in fewer encodings); "all": score every weight (stages/train/mix.py)
     mix_search: str = "descend"
+    # the dev queries the net scores: "all" (the synthetic dev split and the real questions
+    # about dev documents, human_dev) or "real" (human_dev alone: synthetic queries that
+    # training made easy to match cannot outvote the real ones; docs/training.md)
+    mix_queries: str = "all"
     # "random": batches drawn at random (without duplicate texts); "length": batches of similar
     # length, so fewer pad tokens are computed (stages/train/batches.py)
     batching: str = "random"
@@ -389,6 +393,8 @@ class TrainConfig:
             _fail("train.batching", self.batching, "'random' or 'length'")
         if self.mix_search not in ("descend", "all"):
             _fail("train.mix_search", self.mix_search, "'descend' or 'all'")
+        if self.mix_queries not in ("all", "real"):
+            _fail("train.mix_queries", self.mix_queries, "'all' or 'real'")
         for w in self.mix_weights:
             _range("train.mix_weights", w, 0.0, 1.0)
         if len(set(self.mix_weights)) != len(self.mix_weights):

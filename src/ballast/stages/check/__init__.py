@@ -1,11 +1,12 @@
 """Stage check (pre-flight): before the expensive stages, can the gate decide anything?
 
 Every gated split needs ``gate.min_queries`` queries: with fewer the gate can only fail, so the
-run stops here (exit 2) and says what to add. For each gated split it also estimates the
-smallest gain the paired test could detect: from the base model's per-query scores of the
-primary metric on that split (their standard deviation standing in for that of the per-query
-differences, which training has not produced yet), at ``gate.alpha`` and 80% power
-(core.stats.min_detectable_effect). Writes check.json; the report shows it.
+run stops here (exit 2) and says what to add; so does a safety net asked to score real dev
+questions (``train.mix_queries = "real"``) where there are none. For each gated split it also
+estimates the smallest gain the paired test could detect: from the base model's per-query
+scores of the primary metric on that split (their standard deviation standing in for that of
+the per-query differences, which training has not produced yet), at ``gate.alpha`` and 80%
+power (core.stats.min_detectable_effect). Writes check.json; the report shows it.
 """
 
 from __future__ import annotations
@@ -21,11 +22,12 @@ POWER = 0.8
 
 def check(run: Run) -> dict[str, Any]:
     from ballast.core.gate import count_problems
+    from ballast.stages.train import net_problems
 
     cfg = run.cfg.gate
     splits = run.splits()
     counts = {s: len(splits["queries"].get(s, [])) for s in cfg.splits if s != "guard"}
-    problems = count_problems(splits, cfg)
+    problems = count_problems(splits, cfg) + net_problems(splits, run.cfg.train.mix_queries)
     result: dict[str, Any] = {
         "min_queries": cfg.min_queries,
         "alpha": cfg.alpha,
@@ -97,6 +99,7 @@ STAGE = Stage(
         "evaluate.bf16",
         "evaluate.backend",
         "train.max_seq_length",
+        "train.mix_queries",
     ),
     inputs=("passages.jsonl", "queries.jsonl", "splits.json"),
     outputs=("check.json",),

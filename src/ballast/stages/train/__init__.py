@@ -14,15 +14,40 @@ from ballast.core.splits import training_query_ids
 from ballast.io.files import atomic_dir, read_jsonl, write_json
 from ballast.stages.base import Run, Stage, without_timings
 
+# the dev queries by train.mix_queries: the synthetic queries on dev documents and the real
+# questions about them ("all", also what train.eval_steps scores), or the real ones alone
+DEV_SPLITS = {"all": ("dev", "human_dev"), "real": ("human_dev",)}
 
-def dev_set(run: Run, passages: list[dict], queries: list[dict], splits: dict) -> Any:
-    """The dev split's queries against the whole corpus, scored by the gate's primary metric,
-    for ``train.eval_steps``; an error when the split has no dev queries."""
+
+def dev_query_ids(splits: dict, which: str = "all") -> list[str]:
+    """The ids of the dev queries of ``which`` (a key of DEV_SPLITS), split by split."""
+    return [q for name in DEV_SPLITS[which] for q in splits["queries"].get(name, [])]
+
+
+def net_problems(splits: dict, mix_queries: str) -> list[str]:
+    """What stops a run before training (stages check and train): a safety net asked to score
+    the real dev questions of a run that has none. (With no dev queries at all and
+    ``mix_queries = "all"`` the net is skipped, and train says so.)"""
+    if mix_queries != "real" or splits["queries"].get("human_dev"):
+        return []
+    return [
+        "train.mix_queries = 'real' scores the safety net on the real questions about dev "
+        "documents (split human_dev), and this run has none: give synth.questions with "
+        "questions about the documents and split.dev_fraction above 0, or set "
+        "train.mix_queries = 'all'"
+    ]
+
+
+def dev_set(
+    run: Run, passages: list[dict], queries: list[dict], splits: dict, which: str = "all"
+) -> Any:
+    """The dev queries (``which``: a key of DEV_SPLITS) against the whole corpus, scored by the
+    gate's primary metric, for ``train.eval_steps`` and the safety net; an error when there are
+    none."""
     from ballast.core.records import qrels_for
     from ballast.stages.train.full import DevSet
 
-    # the dev splits: synthetic queries on dev documents and the real questions about them
-    qids = [*splits["queries"].get("dev", []), *splits["queries"].get("human_dev", [])]
+    qids = dev_query_ids(splits, which)
     if not qids:
         raise StageError(
             "train.eval_steps scores the dev split, which has no queries: set "
@@ -46,6 +71,7 @@ def _preflight(run: Run, splits: dict) -> None:
     from ballast.core.gate import count_problems
 
     problems = count_problems(splits, run.cfg.gate)
+    problems += net_problems(splits, run.cfg.train.mix_queries)
     if problems:
         raise StageError("pre-flight: " + "; ".join(problems))
 
@@ -191,7 +217,7 @@ def _net_texts(run: Run, passages: int, splits: dict) -> int:
     queries and their candidates (stages/train/mix.py); 0 when there is no net to run."""
     from ballast.stages.train.mix import CANDIDATES
 
-    n_dev = len(splits["queries"].get("dev", [])) + len(splits["queries"].get("human_dev", []))
+    n_dev = len(dev_query_ids(splits, run.cfg.train.mix_queries))
     if not (run.cfg.train.mix_weights and n_dev):
         return 0
     return n_dev + min(passages, n_dev * (CANDIDATES + 1))
@@ -201,18 +227,21 @@ def _safety_net(
     run: Run, model_dir: Path, dev: Any, passages: list[dict], queries: list[dict], splits: dict
 ) -> dict[str, Any] | None:
     """train.mix_weights: keep the interpolation of base and tuned weights that scores best on
-    the dev queries (weight 0 is the base model; stages/train/mix.py)."""
+    the dev queries of train.mix_queries (weight 0 is the base model; stages/train/mix.py).
+    ``dev``: train.eval_steps' dev set (every dev query), reused where the net scores all."""
     weights = tuple(run.cfg.train.mix_weights)
     if not weights:
         return None
-    if not (splits["queries"].get("dev") or splits["queries"].get("human_dev")):
+    which = run.cfg.train.mix_queries
+    if not dev_query_ids(splits, which):
         run.progress.info("train: no dev queries, so the base/tuned mix is not chosen; tuned kept")
         return None
     from ballast.models.loading import load_encoder
     from ballast.models.precision import use_bf16
     from ballast.stages.train.mix import choose_weight
 
-    dev = dev or dev_set(run, passages, queries, splits)
+    if dev is None or which != "all":
+        dev = dev_set(run, passages, queries, splits, which)
     base = run.base_encoder()
     base_passages = run.encode(base, run.base_fp, dev.passage_texts, "encoding passages (base)")
     base_queries = run.encode(base, run.base_fp, dev.query_texts, "encoding dev queries (base)")
@@ -220,7 +249,8 @@ def _safety_net(
     descend = run.cfg.train.mix_search == "descend"
     run.progress.info(f"train: scoring base/tuned mixes {', '.join(f'{w:g}' for w in weights)}"
                       f"{' (largest first, until the score falls)' if descend else ''} "
-                      f"on {len(dev.query_texts)} dev queries")  # fmt: skip
+                      f"on {len(dev.query_texts)} {'real ' if which == 'real' else ''}"
+                      "dev queries")  # fmt: skip
     net = choose_weight(
         base, tuned, dev, weights, base_passages=base_passages, base_queries=base_queries,
         base_bf16=run.encode_bf16, descend=descend,
@@ -231,7 +261,7 @@ def _safety_net(
     run.progress.info(f"train: kept weight {net['weight']:g} of the tuned model (dev {dev.metric}"
                       f", {net['precision']}: " + ", ".join(
                           f"{w} {v:.4f}" for w, v in net["dev_scores"].items()) + ")")  # fmt: skip
-    return {**net, "dev_queries": len(dev.query_texts), "metric": dev.metric}
+    return {**net, "dev_queries": len(dev.query_texts), "queries": which, "metric": dev.metric}
 
 
 def train_frozen_adapter(
