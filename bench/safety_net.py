@@ -42,7 +42,7 @@ def main(argv: list[str] | None = None) -> int:
               "model; need a run that kept 1", file=sys.stderr)  # fmt: skip
         return 2
     run = Run(load_run_config(args.run), persist_config=False)
-    dev = dev_set(run, run.passages(), run.queries(), run.splits())
+    dev = dev_set(run, run.passages(), run.queries(), run.splits(), run.cfg.train.mix_queries)
     base = run.base_encoder()
     base_passages = encode_cached(base, run.base_fp, dev.passage_texts, run.cache(),
                                   batch_size=dev.batch_size)  # fmt: skip
