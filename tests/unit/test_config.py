@@ -348,7 +348,7 @@ def test_mix_queries_chooses_the_dev_queries_the_net_scores() -> None:
     """train.mix_queries: "all" scores the net on the synthetic dev split and the real dev
     questions, in that order (what train.eval_steps scores too), "real" on the real ones alone;
     any other value is refused naming the key."""
-    from ballast.stages.train import dev_query_ids
+    from ballast.core.splits import dev_query_ids
 
     splits = {"queries": {"dev": ["d1", "d2"], "human_dev": ["h1"], "human": ["x"]}}
     assert dev_query_ids(splits) == ["d1", "d2", "h1"]

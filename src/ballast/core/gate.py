@@ -98,6 +98,20 @@ def count_problems(splits: dict[str, Any], cfg: GateConfig) -> list[str]:
     return out
 
 
+def net_problems(splits: dict, mix_queries: str) -> list[str]:
+    """What stops a run before training (stages check and train): a safety net asked to score
+    the real dev questions of a run that has none. (With no dev queries at all and
+    ``mix_queries = "all"`` the net is skipped, and train says so.)"""
+    if mix_queries != "real" or splits["queries"].get("human_dev"):
+        return []
+    return [
+        "train.mix_queries = 'real' scores the safety net on the real questions about dev "
+        "documents (split human_dev), and this run has none: give synth.questions with "
+        "questions about the documents and split.dev_fraction above 0, or set "
+        "train.mix_queries = 'all'"
+    ]
+
+
 def _pct(confidence: float) -> str:
     return f"{100 * confidence:g}%"
 

@@ -135,6 +135,16 @@ def training_query_ids(splits: dict[str, Any]) -> list[str]:
     return [*q.get("train", []), *q.get("human_train", [])]
 
 
+# the dev queries by train.mix_queries: the synthetic queries on dev documents and the real
+# questions about them ("all", also what train.eval_steps scores), or the real ones alone
+DEV_SPLITS = {"all": ("dev", "human_dev"), "real": ("human_dev",)}
+
+
+def dev_query_ids(splits: dict, which: str = "all") -> list[str]:
+    """The ids of the dev queries of ``which`` (a key of DEV_SPLITS), split by split."""
+    return [q for name in DEV_SPLITS[which] for q in splits["queries"].get(name, [])]
+
+
 _SPLIT_CODE = {s: i for i, s in enumerate(DOC_SPLITS)}
 
 

@@ -21,8 +21,7 @@ POWER = 0.8
 
 
 def check(run: Run) -> dict[str, Any]:
-    from ballast.core.gate import count_problems
-    from ballast.stages.train import net_problems
+    from ballast.core.gate import count_problems, net_problems
 
     cfg = run.cfg.gate
     splits = run.splits()

@@ -10,40 +10,17 @@ from ballast import __version__
 from ballast.config.record import section_dict
 from ballast.core.errors import StageError
 from ballast.core.records import training_positive
-from ballast.core.splits import training_query_ids
+from ballast.core.splits import dev_query_ids, training_query_ids
 from ballast.io.files import atomic_dir, read_jsonl, write_json
 from ballast.stages.base import Run, Stage, without_timings
-
-# the dev queries by train.mix_queries: the synthetic queries on dev documents and the real
-# questions about them ("all", also what train.eval_steps scores), or the real ones alone
-DEV_SPLITS = {"all": ("dev", "human_dev"), "real": ("human_dev",)}
-
-
-def dev_query_ids(splits: dict, which: str = "all") -> list[str]:
-    """The ids of the dev queries of ``which`` (a key of DEV_SPLITS), split by split."""
-    return [q for name in DEV_SPLITS[which] for q in splits["queries"].get(name, [])]
-
-
-def net_problems(splits: dict, mix_queries: str) -> list[str]:
-    """What stops a run before training (stages check and train): a safety net asked to score
-    the real dev questions of a run that has none. (With no dev queries at all and
-    ``mix_queries = "all"`` the net is skipped, and train says so.)"""
-    if mix_queries != "real" or splits["queries"].get("human_dev"):
-        return []
-    return [
-        "train.mix_queries = 'real' scores the safety net on the real questions about dev "
-        "documents (split human_dev), and this run has none: give synth.questions with "
-        "questions about the documents and split.dev_fraction above 0, or set "
-        "train.mix_queries = 'all'"
-    ]
 
 
 def dev_set(
     run: Run, passages: list[dict], queries: list[dict], splits: dict, which: str = "all"
 ) -> Any:
-    """The dev queries (``which``: a key of DEV_SPLITS) against the whole corpus, scored by the
-    gate's primary metric, for ``train.eval_steps`` and the safety net; an error when there are
-    none."""
+    """The dev queries (``which``: a key of core.splits.DEV_SPLITS) against the whole corpus,
+    scored by the gate's primary metric, for ``train.eval_steps`` and the safety net; an error
+    when there are none."""
     from ballast.core.records import qrels_for
     from ballast.stages.train.full import DevSet
 
@@ -68,7 +45,7 @@ def dev_set(
 def _preflight(run: Run, splits: dict) -> None:
     """Training is the expensive part: refuse it when a gated split is too small to decide
     (`ballast train` run alone gets the check stage's count check too)."""
-    from ballast.core.gate import count_problems
+    from ballast.core.gate import count_problems, net_problems
 
     problems = count_problems(splits, run.cfg.gate)
     problems += net_problems(splits, run.cfg.train.mix_queries)
