@@ -278,10 +278,14 @@ def test_the_net_on_real_dev_questions_alone(tmp_path: Path) -> None:
     docs, questions = make_demo_slice(tmp_path, n_docs=4)
     cfg = write_config(
         tmp_path, docs, questions, **TINY, split="dev_fraction = 0.25",
-        train="batch_size = 8\nmax_seq_length = 64\nmix_queries = \"real\"\nmix_search = \"all\"",
+        train="batch_size = 8\nmax_seq_length = 64\nmix_queries = \"real\"\nmix_search = \"all\""
+              "\nbf16 = false",
     )  # fmt: skip
+    # float32 throughout, so the net's scores and evaluate's are the same computation on any CPU
     text = cfg.read_text("utf-8").replace(
-        'splits = ["dev", "test", "human"]', 'splits = ["dev", "test", "human", "human_dev"]', 1
+        'splits = ["dev", "test", "human"]',
+        'splits = ["dev", "test", "human", "human_dev"]\nbf16 = false',
+        1,
     )
     cfg.write_text(text, "utf-8")
     r = ballast_run(cfg)

@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING, Any
 from ballast.core.stats import holm
 
 if TYPE_CHECKING:  # the section's type only: core imports nothing above it
-    from ballast.config import GateConfig
+    from ballast.config import Config, GateConfig
 
 
 SUPERIORITY = ("test", "judge", "human")
@@ -110,6 +110,12 @@ def net_problems(splits: dict, mix_queries: str) -> list[str]:
         "questions about the documents and split.dev_fraction above 0, or set "
         "train.mix_queries = 'all'"
     ]
+
+
+def preflight_problems(splits: dict[str, Any], cfg: Config) -> list[str]:
+    """Everything that stops a run before training, for the check stage and for train's own
+    pre-flight (``ballast train`` run alone): the gated splits' counts and the net's queries."""
+    return count_problems(splits, cfg.gate) + net_problems(splits, cfg.train.mix_queries)
 
 
 def _pct(confidence: float) -> str:

@@ -21,12 +21,12 @@ POWER = 0.8
 
 
 def check(run: Run) -> dict[str, Any]:
-    from ballast.core.gate import count_problems, net_problems
+    from ballast.core.gate import preflight_problems
 
     cfg = run.cfg.gate
     splits = run.splits()
     counts = {s: len(splits["queries"].get(s, [])) for s in cfg.splits if s != "guard"}
-    problems = count_problems(splits, cfg) + net_problems(splits, run.cfg.train.mix_queries)
+    problems = preflight_problems(splits, run.cfg)
     result: dict[str, Any] = {
         "min_queries": cfg.min_queries,
         "alpha": cfg.alpha,

@@ -45,10 +45,9 @@ def dev_set(
 def _preflight(run: Run, splits: dict) -> None:
     """Training is the expensive part: refuse it when a gated split is too small to decide
     (`ballast train` run alone gets the check stage's count check too)."""
-    from ballast.core.gate import count_problems, net_problems
+    from ballast.core.gate import preflight_problems
 
-    problems = count_problems(splits, run.cfg.gate)
-    problems += net_problems(splits, run.cfg.train.mix_queries)
+    problems = preflight_problems(splits, run.cfg)
     if problems:
         raise StageError("pre-flight: " + "; ".join(problems))
 
